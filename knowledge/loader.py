@@ -1,0 +1,239 @@
+"""Load the knowledge tables and a policy, validate them whole, and compile the rules.
+
+The tables live in ``knowledge/data/*.yaml``; a policy is one YAML file (the default is
+``knowledge/data/policies/default.yaml``). A broken table raises :class:`KnowledgeError` here, at load,
+never in a live decision.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from collections import Counter
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import yaml
+from pydantic import ValidationError
+
+from . import models as m
+from .conditions import Compiled, compile_condition
+from .errors import KnowledgeError
+from .validation import describe
+
+DATA_DIR = Path(__file__).parent / "data"
+DEFAULT_POLICY = DATA_DIR / "policies" / "default.yaml"
+TABLES = ("sources", "agents", "routes", "exams", "rules")
+
+
+@dataclass(frozen=True)
+class CompiledRule:
+    rule: m.Rule
+    test: Compiled
+    source_text: str
+
+
+@dataclass
+class Knowledge:
+    """Validated tables, a policy, indexes and compiled rules. Read-only once built."""
+
+    tables: m.Tables
+    policy: m.Policy
+    version: str
+    policy_version: str
+    sources: dict[str, m.Source] = field(default_factory=dict)
+    agents: dict[str, m.Agent] = field(default_factory=dict)
+    exams: dict[str, m.Exam] = field(default_factory=dict)
+    rules: dict[str, m.Rule] = field(default_factory=dict)
+    compatible: dict[m.Route, list[m.Agent]] = field(default_factory=dict)
+    agent_rules: list[CompiledRule] = field(default_factory=list)
+    case_rules: list[CompiledRule] = field(default_factory=list)
+    regimens: dict[str, m.Regimen] = field(default_factory=dict)
+
+    def decide(self, case: Any) -> m.Decision:
+        from .engine import decide
+
+        return decide(case, self)
+
+    def cite(self, refs: list[m.SourceRef], certainty: m.Certainty) -> str:
+        """Sources as shown to users: 'title, issuer year, section; ...' or the certainty words."""
+        if not refs:
+            return "common practice" if certainty is m.Certainty.common_practice else "from memory"
+        parts = []
+        for ref in refs:
+            s = self.sources[ref.source]
+            year = f" {s.year}" if s.year else ""
+            parts.append(f"{s.title}, {s.issuer}{year}, {ref.section}")
+        text = "; ".join(parts)
+        if certainty is m.Certainty.from_memory:
+            text += " (from memory, not verified)"
+        elif certainty is m.Certainty.common_practice:
+            text += " (common practice)"
+        return text
+
+    def counts(self) -> dict[str, int]:
+        return {
+            "exams": len(self.exams),
+            "agents": len(self.agents),
+            "rules": len(self.rules),
+            "sources": len(self.sources),
+        }
+
+
+def _read_yaml(path: Path) -> Any:
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise KnowledgeError(f"{path}: file not found") from None
+    except OSError as exc:
+        raise KnowledgeError(f"{path}: cannot be read ({exc.strerror})") from None
+    try:
+        return yaml.safe_load(text), text.encode("utf-8")
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        at = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
+        problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
+        raise KnowledgeError(f"{path.name}: not valid YAML{at}: {problem}") from None
+
+
+def _validate_list(model: type, rows: Any, name: str) -> list:
+    if not isinstance(rows, list):
+        raise KnowledgeError(f"{name}.yaml: the file must hold a list of records; got {type(rows).__name__}")
+    out = []
+    for i, row in enumerate(rows):
+        ident = row.get("id") if isinstance(row, dict) else None
+        ident = ident or (row.get("route") if isinstance(row, dict) else None) or f"#{i + 1}"
+        try:
+            out.append(model.model_validate(row))
+        except ValidationError as exc:
+            raise KnowledgeError(f"{name}.yaml: record {ident}: {describe(exc, model)}") from None
+    return out
+
+
+def _unique(rows: list, name: str, key: str = "id") -> None:
+    dup = [k for k, n in Counter(getattr(r, key) for r in rows).items() if n > 1]
+    if dup:
+        raise KnowledgeError(f"{name}.yaml: duplicate {key} {', '.join(map(str, dup))}")
+
+
+def load_policy(path: Path | str | None = None) -> tuple[m.Policy, bytes]:
+    p = Path(path) if path else DEFAULT_POLICY
+    raw, blob = _read_yaml(p)
+    if not isinstance(raw, dict):
+        raise KnowledgeError(f"{p.name}: a policy file must hold one mapping of settings")
+    try:
+        return m.Policy.model_validate(raw), blob
+    except ValidationError as exc:
+        raise KnowledgeError(f"{p.name}: {describe(exc, m.Policy, 'policy')}") from None
+
+
+def load_knowledge(data_dir: Path | str | None = None, policy: Path | str | None = None) -> Knowledge:
+    """Read, validate and index every table and the policy. Raises :class:`KnowledgeError`."""
+    base = Path(data_dir) if data_dir else DATA_DIR
+    raw: dict[str, Any] = {}
+    digest = hashlib.sha256()
+    for name in TABLES:
+        data, blob = _read_yaml(base / f"{name}.yaml")
+        raw[name] = data
+        digest.update(name.encode() + b"\0" + blob + b"\0")
+    pol, pol_blob = load_policy(policy)
+
+    models = {
+        "sources": m.Source,
+        "agents": m.Agent,
+        "routes": m.RouteCompatibility,
+        "exams": m.Exam,
+        "rules": m.Rule,
+    }
+    parsed = {name: _validate_list(models[name], raw[name], name) for name in TABLES}
+    for name in ("sources", "agents", "exams", "rules"):
+        _unique(parsed[name], name)
+    _unique(parsed["routes"], "routes", "route")
+    tables = m.Tables(**parsed)
+
+    k = Knowledge(
+        tables=tables,
+        policy=pol,
+        version=digest.hexdigest()[:12],
+        policy_version=hashlib.sha256(pol_blob).hexdigest()[:12],
+    )
+    k.sources = {s.id: s for s in tables.sources}
+    k.agents = {a.id: a for a in tables.agents}
+    k.exams = {e.id: e for e in tables.exams}
+    k.rules = {r.id: r for r in tables.rules}
+    k.regimens = {r.id: r for r in pol.regimens}
+    _check_references(k)
+    _build_compatibility(k)
+    _check_exam_roles(k)
+    for rule in tables.rules:
+        where = f"rules.yaml: rule {rule.id}"
+        compiled = CompiledRule(rule, compile_condition(rule.when, pol, where, rule.scope),
+                                k.cite(rule.sources, rule.certainty))
+        (k.agent_rules if rule.scope is m.Scope.agent else k.case_rules).append(compiled)
+    return k
+
+
+def _ref_ok(k: Knowledge, refs: list[m.SourceRef], where: str) -> None:
+    for ref in refs:
+        if ref.source not in k.sources:
+            raise KnowledgeError(
+                f"{where}: source {ref.source!r} is not in sources.yaml; known: {', '.join(sorted(k.sources))}"
+            )
+
+
+def _check_references(k: Knowledge) -> None:
+    for a in k.tables.agents:
+        _ref_ok(k, a.sources, f"agents.yaml: agent {a.id}")
+        for c in a.concentrations:
+            if c.source:
+                _ref_ok(k, [c.source], f"agents.yaml: agent {a.id}")
+        if a.family is m.Family.iodinated and any(c.unit is not m.Unit.mg_i_per_ml for c in a.concentrations):
+            raise KnowledgeError(f"agents.yaml: agent {a.id}: iodinated strengths must be in mg_i_per_ml")
+    for r in k.tables.rules:
+        _ref_ok(k, r.sources, f"rules.yaml: rule {r.id}")
+    for e in k.tables.exams:
+        for role in e.roles:
+            if role.protocol and role.protocol.source:
+                _ref_ok(k, [role.protocol.source], f"exams.yaml: exam {e.id}")
+    _ref_ok(k, k.policy.based_on, f"policy {k.policy.id}")
+    for reg in k.policy.regimens:
+        _ref_ok(k, [reg.source], f"policy {k.policy.id}: regimen {reg.id}")
+    for name in ("premedication_regimen", "premedication_accelerated_regimen"):
+        rid = getattr(k.policy, name)
+        if rid not in k.regimens:
+            raise KnowledgeError(
+                f"policy {k.policy.id}: {name} {rid!r} is not one of its regimens; allowed: {', '.join(k.regimens)}"
+            )
+
+
+def _build_compatibility(k: Knowledge) -> None:
+    seen = {c.route for c in k.tables.routes}
+    missing = [r.value for r in m.Route if r not in seen]
+    if missing:
+        raise KnowledgeError(f"routes.yaml: no compatibility record for route {', '.join(missing)}")
+    for comp in k.tables.routes:
+        for aid in comp.agents:
+            if aid not in k.agents:
+                raise KnowledgeError(f"routes.yaml: route {comp.route.value}: unknown agent {aid!r}")
+        k.compatible[comp.route] = [
+            a
+            for a in k.tables.agents
+            if a.id in comp.agents
+            or (a.form in comp.forms and (not comp.families or a.family in comp.families))
+        ]
+
+
+def _check_exam_roles(k: Knowledge) -> None:
+    for e in k.tables.exams:
+        for i, role in enumerate(e.roles):
+            where = f"exams.yaml: exam {e.id}, role {i + 1} ({role.route.value})"
+            if not role.agents:
+                raise KnowledgeError(f"{where}: agents must list at least one agent")
+            compat = {a.id for a in k.compatible[role.route]}
+            for aid in role.agents:
+                if aid not in k.agents:
+                    raise KnowledgeError(f"{where}: unknown agent {aid!r}; see `contrast-aid agents`")
+                if aid not in compat:
+                    raise KnowledgeError(
+                        f"{where}: agent {aid} cannot be given by route {role.route.value} (routes.yaml)"
+                    )

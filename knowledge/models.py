@@ -1,0 +1,582 @@
+"""Strict pydantic models of the knowledge tables, the case and the decision.
+
+Every model forbids unknown fields and documents each field; the JSON Schema printed by
+``contrast-aid knowledge schema`` is generated from these classes.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from enum import Enum
+from typing import Annotated, Any, Literal, Union
+
+from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+
+class Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True, use_enum_values=False)
+
+
+# --------------------------------------------------------------------------------------------------
+# Enumerations
+# --------------------------------------------------------------------------------------------------
+class AgentClass(str, Enum):
+    negative = "negative"
+    neutral = "neutral"
+    positive = "positive"
+
+
+class Family(str, Enum):
+    gas = "gas"
+    water = "water"
+    barium = "barium"
+    iodinated = "iodinated"
+    oil = "oil"
+
+
+class Form(str, Enum):
+    gas = "gas"
+    granules = "granules"
+    solution = "solution"
+    oral_solution = "oral_solution"
+    suspension = "suspension"
+    paste = "paste"
+    oil = "oil"
+
+
+class OsmolalityClass(str, Enum):
+    high = "high"
+    low = "low"
+    iso = "iso"
+
+
+class Ionicity(str, Enum):
+    ionic = "ionic"
+    non_ionic = "non_ionic"
+
+
+class Route(str, Enum):
+    intravenous = "intravenous"
+    intra_arterial = "intra_arterial"
+    intrathecal = "intrathecal"
+    oral = "oral"
+    rectal = "rectal"
+    retrograde = "retrograde"
+    intracavitary = "intracavitary"
+    insufflation = "insufflation"
+
+
+INTRAVASCULAR = frozenset({Route.intravenous, Route.intra_arterial})
+
+
+class Modality(str, Enum):
+    fluoroscopy = "fluoroscopy"
+    angiography = "angiography"
+    ct = "ct"
+
+
+class ContrastUse(str, Enum):
+    required = "required"
+    optional = "optional"
+    none = "none"
+
+
+class Verdict(str, Enum):
+    suitable = "suitable"
+    suitable_with_precautions = "suitable_with_precautions"
+    not_advised = "not_advised"
+    contraindicated = "contraindicated"
+
+    @property
+    def severity(self) -> int:
+        return _VERDICT_ORDER[self]
+
+
+_VERDICT_ORDER = {
+    Verdict.suitable: 0,
+    Verdict.suitable_with_precautions: 1,
+    Verdict.not_advised: 2,
+    Verdict.contraindicated: 3,
+}
+
+
+class Certainty(str, Enum):
+    """How a fact is known. ``verified``: checked against the named published source."""
+
+    verified = "verified"
+    from_memory = "from_memory"
+    common_practice = "common_practice"
+
+
+class Unit(str, Enum):
+    mg_i_per_ml = "mg_i_per_ml"
+    percent_w_v = "percent_w_v"
+    percent_w_w = "percent_w_w"
+
+
+class RenalExposure(str, Enum):
+    """How the kidneys meet an intravascular dose (ESUR v10 terms)."""
+
+    first_pass = "first_pass"
+    second_pass = "second_pass"
+    none = "none"
+
+
+class Territory(str, Enum):
+    """Where an intravascular injection goes, for carbon dioxide's limits."""
+
+    below_diaphragm = "below_diaphragm"
+    above_diaphragm = "above_diaphragm"
+    any = "any"
+
+
+class Severity(str, Enum):
+    none = "none"
+    mild = "mild"
+    moderate = "moderate"
+    severe = "severe"
+
+
+class ReactionKind(str, Enum):
+    allergic_like = "allergic_like"
+    physiologic = "physiologic"
+
+
+class Dialysis(str, Enum):
+    none = "none"
+    dialysis_anuric = "dialysis_anuric"
+    dialysis_residual_function = "dialysis_residual_function"
+
+
+class Obstruction(str, Enum):
+    none = "none"
+    small_bowel = "small_bowel"
+    large_bowel = "large_bowel"
+
+
+class Flag(str, Enum):
+    """Decision-level consequences a rule can raise when it fires on a chosen agent."""
+
+    hydration_indicated = "hydration_indicated"
+    premedication_indicated = "premedication_indicated"
+    metformin_hold = "metformin_hold"
+    reaction_readiness = "reaction_readiness"
+
+
+class Scope(str, Enum):
+    agent = "agent"
+    case = "case"
+
+
+# --------------------------------------------------------------------------------------------------
+# Knowledge tables
+# --------------------------------------------------------------------------------------------------
+class Source(Strict):
+    id: str = Field(description="Short stable key, e.g. 'acr-nkf-2020'", pattern=r"^[a-z0-9][a-z0-9-]*$")
+    title: str = Field(description="Title of the guideline or paper")
+    issuer: str = Field(description="Issuing body or journal")
+    year: int | None = Field(description="Year of publication (null where it is not known)", ge=1900, le=2100)
+    kind: Literal["guideline", "consensus", "manual", "paper", "review", "label"] = Field(
+        description="What sort of publication it is"
+    )
+    details: str = Field("", description="Volume, pages or edition, where known")
+    certainty: Certainty = Field(
+        Certainty.verified, description="verified: the citation was checked; from_memory: parts of it were not"
+    )
+
+
+class SourceRef(Strict):
+    source: str = Field(description="Id of a row of the sources table")
+    section: str = Field(description="Section, table or page of the source that supports the statement")
+
+
+class Concentration(Strict):
+    value: float = Field(description="Amount per volume (or weight)", gt=0)
+    unit: Unit = Field(description="mg_i_per_ml for iodinated agents, percent_w_v or percent_w_w otherwise")
+    osmolality_mosm_kg: float | None = Field(None, description="Typical osmolality, mOsm/kg H2O", gt=0)
+    viscosity_mpas_20c: float | None = Field(None, description="Viscosity at 20 °C, mPa·s", gt=0)
+    viscosity_mpas_37c: float | None = Field(None, description="Viscosity at 37 °C, mPa·s", gt=0)
+    certainty: Certainty = Field(
+        Certainty.from_memory, description="How the osmolality and viscosity figures are known"
+    )
+    source: SourceRef | None = Field(None, description="Where the figures come from, if verified")
+
+
+class Agent(Strict):
+    id: str = Field(description="Stable key", pattern=r"^[a-z0-9][a-z0-9-]*$")
+    name: str = Field(description="Generic name (never a brand name)")
+    agent_class: AgentClass = Field(description="negative, neutral or positive contrast")
+    family: Family = Field(description="Chemical family")
+    form: Form = Field(description="Physical form, used by the route-compatibility table")
+    osmolality_class: OsmolalityClass | None = Field(None, description="For iodinated agents: high, low or iso")
+    ionicity: Ionicity | None = Field(None, description="For iodinated agents: ionic or non_ionic")
+    concentrations: list[Concentration] = Field(default_factory=list, description="Available strengths")
+    routes: list[Route] = Field(description="Routes the agent is labelled or established for")
+    notes: str = Field("", description="Short remarks shown in the knowledge browser")
+    sources: list[SourceRef] = Field(default_factory=list, description="Where the route and class facts come from")
+    certainty: Certainty = Field(Certainty.verified, description="How the agent facts are known")
+
+    @model_validator(mode="after")
+    def _iodinated_fields(self) -> "Agent":
+        if self.family is Family.iodinated:
+            if self.osmolality_class is None or self.ionicity is None:
+                raise ValueError(f"agent {self.id}: iodinated agents need osmolality_class and ionicity")
+        elif self.osmolality_class is not None or self.ionicity is not None:
+            raise ValueError(f"agent {self.id}: osmolality_class and ionicity are for iodinated agents only")
+        if not self.routes:
+            raise ValueError(f"agent {self.id}: routes must list at least one route")
+        return self
+
+
+class RouteCompatibility(Strict):
+    route: Route = Field(description="The route")
+    forms: list[Form] = Field(default_factory=list, description="Physical forms that could be given this way")
+    families: list[Family] = Field(
+        default_factory=list, description="If given, only agents of these families (with the forms above)"
+    )
+    agents: list[str] = Field(default_factory=list, description="Extra agents by id, whatever their form")
+    note: str = Field("", description="Why the list is what it is")
+
+
+class DoseProtocol(Strict):
+    """A role's default intravenous dose protocol (used by the dose calculators)."""
+
+    iodine_g_per_kg: float | None = Field(None, description="Weight-based iodine dose, g I per kg", gt=0, le=1.5)
+    fixed_volume_ml: float | None = Field(None, description="Fixed protocol volume, mL", gt=0, le=300)
+    max_volume_ml: float = Field(150, description="Cap on the volume, mL", gt=0, le=300)
+    flow_ml_s: float = Field(description="Planned injection rate, mL/s", gt=0, le=10)
+    scan_duration_s: float | None = Field(
+        None, description="For angiographic CT: scan duration, s (volume = flow · (duration + offset))", gt=0
+    )
+    duration_offset_s: float = Field(0, description="Seconds added to the scan duration for volume", ge=0)
+    concentration_mg_i_ml: float | None = Field(None, description="Preferred strength, mg I/mL", gt=0)
+    certainty: Certainty = Field(Certainty.common_practice, description="How the protocol figures are known")
+    source: SourceRef | None = Field(None, description="Source of the protocol figures, if any")
+
+
+class ExamRole(Strict):
+    route: Route = Field(description="How the contrast enters the body")
+    purpose: str = Field(description="What the contrast does here, e.g. 'opacify arteries'")
+    required: bool = Field(True, description="False where the role is optional (depends on the indication)")
+    agents: list[str] = Field(description="Agents that usually serve this role, in order of preference")
+    renal_exposure: RenalExposure = Field(RenalExposure.none, description="Renal exposure of an intravascular dose")
+    territory: Territory = Field(Territory.any, description="Vascular territory, for intravascular roles")
+    catheter_study: bool = Field(False, description="A catheter study (Cigarroa limit applies)")
+    protocol: DoseProtocol | None = Field(None, description="Default dose protocol for intravenous roles")
+
+
+class Exam(Strict):
+    id: str = Field(description="Stable key", pattern=r"^(fluoro|angio|ct)-[a-z0-9-]+$")
+    name: str = Field(description="Name shown to users")
+    modality: Modality = Field(description="fluoroscopy, angiography or ct")
+    region: str = Field(description="Body region")
+    purpose: str = Field(description="What the exam answers")
+    contrast: ContrastUse = Field(description="Whether contrast is required, optional or not used")
+    tags: list[str] = Field(default_factory=list, description="Free keys rules may test, e.g. 'tube-or-drain'")
+    roles: list[ExamRole] = Field(default_factory=list, description="The ways contrast enters in this exam")
+    notes: str = Field("", description="Remarks shown with the exam")
+
+    @model_validator(mode="after")
+    def _roles_match_contrast(self) -> "Exam":
+        if self.contrast is ContrastUse.none and self.roles:
+            raise ValueError(f"exam {self.id}: contrast 'none' but roles are listed")
+        if self.contrast is not ContrastUse.none and not self.roles:
+            raise ValueError(f"exam {self.id}: contrast '{self.contrast.value}' needs at least one role")
+        return self
+
+
+# ---- rule conditions: a small structured format, validated, never eval'd -------------------------
+class PolicyValue(Strict):
+    policy: str = Field(description="Name of a numeric setting of the active policy")
+
+
+Scalar = Union[bool, int, float, str, None]
+Operand = Union[PolicyValue, Scalar]
+
+
+class Test(Strict):
+    """One comparison of a named fact. Exactly one operator is given."""
+
+    fact: str = Field(description="A fact name from the fact catalogue (see knowledge/facts.py)")
+    is_: Scalar | PolicyValue = Field(None, alias="is", description="Equal to")
+    is_not: Scalar | PolicyValue = Field(None, description="Not equal to")
+    in_: list[Scalar] | None = Field(None, alias="in", description="One of")
+    not_in: list[Scalar] | None = Field(None, description="None of")
+    lt: float | PolicyValue | None = Field(None, description="Less than (false when the fact is unknown)")
+    le: float | PolicyValue | None = Field(None, description="At most (false when the fact is unknown)")
+    gt: float | PolicyValue | None = Field(None, description="Greater than (false when the fact is unknown)")
+    ge: float | PolicyValue | None = Field(None, description="At least (false when the fact is unknown)")
+    has: str | None = Field(None, description="A list-valued fact contains this item")
+    known: bool | None = Field(None, description="The fact has a value (true) or is unknown (false)")
+
+    model_config = ConfigDict(extra="forbid", frozen=True, populate_by_name=True)
+
+    @model_validator(mode="before")
+    @classmethod
+    def _one_operator(cls, data: Any) -> Any:
+        if isinstance(data, dict):
+            ops = [k for k in data if k != "fact"]
+            if len(ops) != 1:
+                raise ValueError(
+                    f"a test needs 'fact' and exactly one operator (is, is_not, in, not_in, lt, le, gt, ge, has, known); got {sorted(ops)}"
+                )
+        return data
+
+    @property
+    def operator(self) -> str:
+        for name in ("is", "is_not", "in", "not_in", "lt", "le", "gt", "ge", "has", "known"):
+            attr = {"is": "is_", "in": "in_"}.get(name, name)
+            if attr in self.model_fields_set:
+                return name
+        raise AssertionError("validated test without operator")
+
+    @property
+    def operand(self) -> Any:
+        op = self.operator
+        return getattr(self, {"is": "is_", "in": "in_"}.get(op, op))
+
+
+class All(Strict):
+    all: list["Condition"] = Field(description="Every condition holds", min_length=1)
+
+
+class AnyOf(Strict):
+    any: list["Condition"] = Field(description="At least one condition holds", min_length=1)
+
+
+class Not(Strict):
+    not_: "Condition" = Field(alias="not", description="The condition does not hold")
+    model_config = ConfigDict(extra="forbid", frozen=True, populate_by_name=True)
+
+
+Condition = Union[Test, All, AnyOf, Not]
+All.model_rebuild()
+AnyOf.model_rebuild()
+Not.model_rebuild()
+
+
+class Effect(Strict):
+    verdict: Verdict | None = Field(None, description="Verdict for the agent (agent-scope rules only)")
+    actions: list[str] = Field(default_factory=list, description="Steps to take, shown under the agent")
+    flags: list[Flag] = Field(default_factory=list, description="Decision-level consequences")
+    caution: bool = Field(False, description="Also list the rule's text among the decision's cautions")
+
+
+class Rule(Strict):
+    id: str = Field(description="Stable key", pattern=r"^[a-z0-9][a-z0-9-]*$")
+    description: str = Field(description="What the rule encodes, for reviewers")
+    scope: Scope = Field(Scope.agent, description="agent: tested for each agent of each role; case: once")
+    when: Condition = Field(description="Condition over the case, exam, role and agent facts")
+    effect: Effect = Field(description="What follows when the condition holds")
+    text: str = Field(description="The reason shown to the user")
+    sources: list[SourceRef] = Field(default_factory=list, description="Published sources with section")
+    certainty: Certainty = Field(description="verified (sources given), from_memory or common_practice")
+
+    @model_validator(mode="after")
+    def _sources_and_scope(self) -> "Rule":
+        if self.certainty is Certainty.verified and not self.sources:
+            raise ValueError(f"rule {self.id}: certainty 'verified' needs at least one source")
+        if self.scope is Scope.case and self.effect.verdict is not None:
+            raise ValueError(f"rule {self.id}: case-scope rules cannot give a verdict")
+        return self
+
+
+class Regimen(Strict):
+    id: str = Field(description="Stable key")
+    name: str = Field(description="Name shown to users")
+    steps: list["RegimenStep"] = Field(description="Doses, each at hours before the exam")
+    minimum_lead_hours: float = Field(description="Least time before the exam the regimen needs", ge=0)
+    source: SourceRef = Field(description="Where the regimen is published")
+
+
+class RegimenStep(Strict):
+    hours_before: float | None = Field(description="Hours before the exam; null for 'now'", ge=0)
+    repeat_every_hours: float | None = Field(None, description="Repeat interval until the exam, hours", gt=0)
+    drug: str = Field(description="Generic drug name")
+    dose: str = Field(description="Dose with unit, e.g. '50 mg'")
+    route: Literal["oral", "intravenous"] = Field(description="oral or intravenous")
+    optional: bool = Field(False, description="The step is optional in the source")
+
+
+Regimen.model_rebuild()
+
+
+class Policy(Strict):
+    """A department's thresholds and choices. Rules refer to these settings by name."""
+
+    id: str = Field(description="Stable key", pattern=r"^[a-z0-9][a-z0-9-]*$")
+    name: str = Field(description="Name shown to users")
+    based_on: list[SourceRef] = Field(description="Guidelines the settings follow")
+    egfr_prophylaxis_consider_below: float = Field(
+        description="eGFR below which prophylaxis may be considered for high-risk patients (IV)", ge=0, le=120
+    )
+    egfr_hydration_below: float = Field(
+        description="eGFR below which IV hydration is indicated for IV or second-pass intra-arterial contrast",
+        ge=0,
+        le=120,
+    )
+    egfr_first_pass_hydration_below: float = Field(
+        description="eGFR below which hydration is indicated for first-pass intra-arterial contrast", ge=0, le=120
+    )
+    metformin_hold_egfr_below: float = Field(description="eGFR below which metformin is withheld", ge=0, le=120)
+    metformin_hold_first_pass: bool = Field(
+        description="Withhold metformin for arterial studies with first-pass renal exposure"
+    )
+    premedication_regimen: str = Field(description="Id of the default elective premedication regimen")
+    premedication_accelerated_regimen: str = Field(description="Id of the accelerated regimen")
+    regimens: list[Regimen] = Field(description="Premedication regimens on offer")
+    hydration_regimen: str = Field(description="Hydration regimen shown when hydration is indicated")
+    radioiodine_delay_weeks: float = Field(
+        description="Weeks to wait after iodinated contrast before radioiodine", ge=0, le=26
+    )
+    creatinine_max_age_days_outpatient: float = Field(
+        30, description="Oldest acceptable creatinine for a stable outpatient, days", gt=0
+    )
+    creatinine_max_age_days_inpatient: float = Field(
+        2, description="Oldest acceptable creatinine for an inpatient or acute illness, days", gt=0
+    )
+    iodine_g_per_gfr_max: float = Field(1.0, description="Flag when g iodine / absolute GFR reaches this", gt=0)
+    first_pass_iodine_g_per_gfr_max: float | None = Field(
+        None, description="Optional first-pass intra-arterial cap, g iodine / absolute GFR", gt=0
+    )
+
+    def number(self, name: str) -> float:
+        value = getattr(self, name)
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise KeyError(name)
+        return float(value)
+
+
+class Tables(Strict):
+    """All knowledge tables, validated together."""
+
+    sources: list[Source]
+    agents: list[Agent]
+    routes: list[RouteCompatibility]
+    exams: list[Exam]
+    rules: list[Rule]
+
+
+# --------------------------------------------------------------------------------------------------
+# The case
+# --------------------------------------------------------------------------------------------------
+class Creatinine(Strict):
+    value: float = Field(description="Serum creatinine", gt=0)
+    unit: Literal["mg/dL", "umol/L"] = Field(description="mg/dL or umol/L")
+    measured_on: dt.date | dt.datetime | None = Field(None, description="When the sample was taken")
+
+
+class PriorReaction(Strict):
+    agent_family: Family = Field(description="Family of the agent that caused it")
+    kind: ReactionKind = Field(description="allergic_like or physiologic")
+    severity: Literal["mild", "moderate", "severe"] = Field(description="mild, moderate or severe")
+    agent: str | None = Field(None, description="The culprit agent's id, if known")
+
+
+class IVAccess(Strict):
+    gauge: int = Field(description="Catheter gauge", ge=14, le=24)
+    site: Literal[
+        "antecubital", "forearm", "hand_or_wrist", "central_power_injectable", "central_not_power_rated"
+    ] = Field(description="Where the catheter is")
+
+
+class Patient(Strict):
+    age_years: float | None = Field(None, description="Age in years", ge=0, le=120)
+    sex: Literal["female", "male"] | None = Field(None, description="Sex used by the eGFR equations")
+    weight_kg: float | None = Field(None, description="Body weight, kg", ge=0.5, le=350)
+    height_cm: float | None = Field(None, description="Height, cm", ge=30, le=250)
+    creatinine: Creatinine | None = Field(None, description="Serum creatinine")
+    cystatin_c_mg_l: float | None = Field(None, description="Serum cystatin C, mg/L", gt=0)
+    egfr: float | None = Field(None, description="eGFR entered directly, mL/min/1.73 m²", ge=1, le=200)
+    acute_kidney_injury: bool = Field(False, description="Acute kidney injury now")
+    dialysis: Dialysis = Field(Dialysis.none, description="none, dialysis_anuric or dialysis_residual_function")
+    perforation_suspected: bool = Field(False, description="Suspected perforation or leak of a hollow organ")
+    obstruction: Obstruction = Field(Obstruction.none, description="none, small_bowel or large_bowel")
+    aspiration_risk: bool = Field(False, description="Swallowing difficulty or aspiration risk")
+    tracheoesophageal_fistula_suspected: bool = Field(False, description="Suspected tracheo-oesophageal fistula")
+    prior_reactions: list[PriorReaction] = Field(default_factory=list, description="Earlier contrast reactions")
+    takes_metformin: bool = Field(False, description="Takes metformin")
+    hyperthyroidism: bool = Field(False, description="Hyperthyroidism, nodular goitre or latent Graves' disease")
+    radioiodine_planned: bool = Field(False, description="Radioiodine therapy or scan planned")
+    pregnant: bool = Field(False, description="Pregnant")
+    breastfeeding: bool = Field(False, description="Breastfeeding")
+    shellfish_or_iodine_allergy: bool = Field(False, description="Reports seafood or povidone-iodine allergy")
+    heart_failure: bool = Field(False, description="Heart failure that limits IV fluids")
+    myasthenia_gravis: bool = Field(False, description="Myasthenia gravis")
+    inpatient: bool = Field(False, description="Inpatient or acutely ill")
+    iv_access: IVAccess | None = Field(None, description="The planned IV catheter")
+
+
+class Case(Strict):
+    exam: str = Field(description="Exam id from the exams table")
+    patient: Patient = Field(default_factory=Patient, description="Patient factors")
+    scheduled_at: dt.datetime | None = Field(None, description="Exam date-time (ISO 8601, local)")
+    as_of: dt.datetime | None = Field(None, description="The current time for 'time left' (default now)")
+    agent: str | None = Field(None, description="A requested agent id to plan for")
+    planned_flow_ml_s: float | None = Field(None, description="Override of the protocol flow, mL/s", gt=0, le=10)
+    planned_volume_ml: float | None = Field(None, description="Override of the protocol volume, mL", gt=0, le=300)
+
+
+# --------------------------------------------------------------------------------------------------
+# The decision
+# --------------------------------------------------------------------------------------------------
+class Reason(Strict):
+    rule: str = Field(description="Id of the rule that fired")
+    text: str = Field(description="What the rule says")
+    verdict: Verdict | None = Field(None, description="Verdict the rule gave, if any")
+    source: str = Field(description="Sources as 'title, issuer year, section', or 'common practice'/'from memory'")
+    certainty: Certainty = Field(description="verified, from_memory or common_practice")
+
+
+class Option(Strict):
+    agent: str = Field(description="Agent id")
+    name: str = Field(description="Agent name")
+    agent_class: AgentClass
+    family: Family
+    osmolality_class: OsmolalityClass | None
+    verdict: Verdict
+    rank: int = Field(description="1 = best")
+    chosen: bool = Field(description="The option the plan uses (requested or top-ranked)")
+    reasons: list[Reason]
+    actions: list[str]
+
+
+class RoleDecision(Strict):
+    route: Route
+    purpose: str
+    required: bool
+    options: list[Option]
+
+
+class RenalBlock(Strict):
+    egfr: float | None = Field(description="eGFR used, mL/min/1.73 m² (one decimal)")
+    equation: str | None = Field(description="ckd_epi_2021, ckd_epi_2021_cystatin, bedside_schwartz or entered")
+    category: str | None = Field(description="KDIGO 2012 G category")
+    hydration_indicated: bool
+    hydration_regimen: str | None = Field(None, description="Hydration regimen of the policy, when indicated")
+    note: str | None = Field(None, description="Why no eGFR could be worked out, or how it was")
+
+
+class PremedicationBlock(Strict):
+    indicated: bool
+    regimen: str | None = Field(None, description="Id of the regimen of the policy, when indicated")
+
+
+class MetforminBlock(Strict):
+    hold: bool
+    takes_metformin: bool
+    advice: str | None = Field(None, description="What to do about metformin")
+
+
+class Decision(Strict):
+    exam: str
+    exam_name: str
+    contrast_needed: bool = Field(description="True if any role is required")
+    contrast: ContrastUse
+    roles: list[RoleDecision]
+    renal: RenalBlock
+    premedication: PremedicationBlock
+    metformin: MetforminBlock
+    cautions: list[str]
+    policy: str
+    knowledge_version: str

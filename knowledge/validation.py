@@ -1,0 +1,77 @@
+"""Turn pydantic validation errors into one-line messages naming the field, the value and what is allowed."""
+
+from __future__ import annotations
+
+import typing
+from typing import Any
+
+from pydantic import BaseModel, ValidationError
+
+from .errors import show
+
+
+def _model_at(model: type[BaseModel], loc: tuple) -> type[BaseModel] | None:
+    """The model class that owns the last element of ``loc``, if it can be found."""
+    current: Any = model
+    for part in loc[:-1]:
+        if isinstance(part, int):
+            continue
+        fields = getattr(current, "model_fields", None)
+        if not fields or part not in fields:
+            return None
+        current = _inner_model(fields[part].annotation)
+        if current is None:
+            return None
+    return current if isinstance(current, type) and issubclass(current, BaseModel) else None
+
+
+def _inner_model(annotation: Any) -> type[BaseModel] | None:
+    if isinstance(annotation, type) and issubclass(annotation, BaseModel):
+        return annotation
+    for arg in typing.get_args(annotation):
+        found = _inner_model(arg)
+        if found is not None:
+            return found
+    return None
+
+
+def dotted(loc: tuple) -> str:
+    out = ""
+    for part in loc:
+        if isinstance(part, int):
+            out += f"[{part}]"
+        else:
+            out += ("." if out else "") + str(part)
+    return out or "(top level)"
+
+
+def _one(model: type[BaseModel], err: dict, prefix: str) -> str:
+    # unions add their member names to loc ("function-after[...]", "Test", ...): drop them
+    loc = tuple(p for p in err["loc"] if isinstance(p, int) or ("[" not in p and not p[:1].isupper()))
+    field = (prefix + "." if prefix else "") + dotted(loc) if loc else (prefix or "(top level)")
+    etype, ctx, given = err["type"], err.get("ctx") or {}, err.get("input")
+    if etype == "extra_forbidden":
+        owner = _model_at(model, loc)
+        allowed = ", ".join(owner.model_fields) if owner else "see `contrast-aid knowledge schema`"
+        return f"{field}: unknown field; allowed: {allowed}"
+    if etype == "missing":
+        return f"{field}: required field is missing"
+    if etype in ("literal_error", "enum"):
+        return f"{field}: {show(given)} is not allowed; allowed: {ctx.get('expected', '')}"
+    bounds = {"greater_than": "more than", "greater_than_equal": "at least", "less_than": "less than",
+              "less_than_equal": "at most"}
+    if etype in bounds:
+        limit = next(iter(ctx.values()))
+        return f"{field}: {show(given)} is out of range; allowed: {bounds[etype]} {limit}"
+    if etype == "value_error":
+        return f"{field}: {str(ctx.get('error', err['msg']))}"
+    return f"{field}: {show(given)} is not valid ({err['msg'].lower()})"
+
+
+def describe(exc: ValidationError, model: type[BaseModel], prefix: str = "") -> str:
+    """One line for the first error of ``exc`` (with a count of the others)."""
+    errors = exc.errors(include_url=False)
+    line = _one(model, errors[0], prefix)
+    if len(errors) > 1:
+        line += f" (and {len(errors) - 1} more problem{'s' if len(errors) > 2 else ''})"
+    return line
