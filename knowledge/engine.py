@@ -27,6 +27,7 @@ READINESS = (
     "Wherever iodinated contrast is given, trained staff, a reaction kit and epinephrine must be at hand "
     "(ACR Manual on Contrast Media, treatment of acute reactions)."
 )
+_SYSTEMIC = m.INTRAVASCULAR | {m.Route.intrathecal}
 _SEVERITY = {"none": 0, "mild": 1, "moderate": 2, "severe": 3}
 _SEVERITY_NAME = {v: k for k, v in _SEVERITY.items()}
 
@@ -79,7 +80,8 @@ def _worst(reactions: list[m.PriorReaction], kind: str, family: str | None = Non
     return _SEVERITY_NAME[worst]
 
 
-def case_facts(case: m.Case, exam: m.Exam, egfr: float | None, category: str | None) -> dict[str, Any]:
+def case_facts(case: m.Case, exam: m.Exam, egfr: float | None, category: str | None,
+               policy: m.Policy) -> dict[str, Any]:
     p = case.patient
     facts: dict[str, Any] = {}
     for name in m.Patient.model_fields:
@@ -91,6 +93,7 @@ def case_facts(case: m.Case, exam: m.Exam, egfr: float | None, category: str | N
     facts["renal.category"] = category
     facts["history.allergic_like_worst"] = _worst(p.prior_reactions, "allergic_like")
     facts["history.physiologic_worst"] = _worst(p.prior_reactions, "physiologic")
+    facts["policy.metformin_hold_first_pass"] = policy.metformin_hold_first_pass
     facts["exam.id"] = exam.id
     facts["exam.modality"] = exam.modality.value
     facts["exam.contrast"] = exam.contrast.value
@@ -153,7 +156,7 @@ def decide(case: Any, knowledge: Knowledge | None = None) -> m.Decision:
     except ContrastAidError as exc:
         raise CaseError(f"patient.{exc.message}", field=f"patient.{exc.field}") from None
 
-    base = case_facts(case, exam, egfr, category)
+    base = case_facts(case, exam, egfr, category, k.policy)
     reactions = case.patient.prior_reactions
     flags: set[m.Flag] = set()
     cautions: list[str] = [DECISION_SUPPORT]
@@ -174,14 +177,14 @@ def decide(case: Any, knowledge: Knowledge | None = None) -> m.Decision:
                 eff = rule.effect
                 if eff.verdict is not None and eff.verdict.severity > verdict.severity:
                     verdict = eff.verdict
-                reasons.append(m.Reason(rule=rule.id, text=rule.text, verdict=eff.verdict,
+                reasons.append(m.Reason(rule=rule.id, text=cr.text, verdict=eff.verdict,
                                         source=cr.source_text, certainty=rule.certainty))
-                for act in eff.actions:
+                for act in cr.actions:
                     if act not in actions:
                         actions.append(act)
                 rule_flags.update(eff.flags)
                 if eff.caution:
-                    lifted.append(rule.text)
+                    lifted.append(cr.text)
             order = (verdict.severity, pref.get(agent.id, len(pref)))
             scored.append((order, agent, verdict, reasons, actions, rule_flags, lifted))
         scored.sort(key=lambda s: s[0])
@@ -191,7 +194,7 @@ def decide(case: Any, knowledge: Knowledge | None = None) -> m.Decision:
             chosen = agent.id == chosen_id
             if chosen:
                 flags |= rule_flags
-                chosen_iodinated |= agent.family is m.Family.iodinated
+                chosen_iodinated |= agent.family is m.Family.iodinated and role.route in _SYSTEMIC
                 for text in lifted:
                     if text not in cautions:
                         cautions.append(text)
@@ -205,8 +208,8 @@ def decide(case: Any, knowledge: Knowledge | None = None) -> m.Decision:
     base["exam.has_iodinated_choice"] = chosen_iodinated
     for cr in k.case_rules:
         if cr.test(base):
-            if cr.rule.text not in cautions:
-                cautions.append(cr.rule.text)
+            if cr.text not in cautions:
+                cautions.append(cr.text)
             flags.update(cr.rule.effect.flags)
     if m.Flag.reaction_readiness in flags or chosen_iodinated:
         cautions.append(READINESS)

@@ -54,6 +54,7 @@ _add("renal.egfr", "number", "eGFR in use, mL/min/1.73 m² (unknown if it cannot
 _add("renal.category", "enum", "KDIGO 2012 G category", ("G1", "G2", "G3a", "G3b", "G4", "G5"))
 _add("history.allergic_like_worst", "enum", "Worst earlier allergic-like reaction to any agent", SEVERITIES)
 _add("history.physiologic_worst", "enum", "Worst earlier physiologic reaction to any agent", SEVERITIES)
+_add("policy.metformin_hold_first_pass", "bool", "Policy: withhold metformin for first-pass arterial studies")
 _add("exam.id", "text", "Exam id")
 _add("exam.modality", "enum", "Exam modality", _enum(m.Modality))
 _add("exam.contrast", "enum", "Whether the exam uses contrast", _enum(m.ContrastUse))

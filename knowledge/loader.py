@@ -31,6 +31,8 @@ class CompiledRule:
     rule: m.Rule
     test: Compiled
     source_text: str
+    text: str  # the rule's text with {policy settings} filled in
+    actions: tuple[str, ...]  # likewise for its actions
 
 
 @dataclass
@@ -168,9 +170,31 @@ def load_knowledge(data_dir: Path | str | None = None, policy: Path | str | None
     for rule in tables.rules:
         where = f"rules.yaml: rule {rule.id}"
         compiled = CompiledRule(rule, compile_condition(rule.when, pol, where, rule.scope),
-                                k.cite(rule.sources, rule.certainty))
+                                k.cite(rule.sources, rule.certainty), _fill(rule.text, pol, where),
+                                tuple(_fill(a, pol, where) for a in rule.effect.actions))
         (k.agent_rules if rule.scope is m.Scope.agent else k.case_rules).append(compiled)
     return k
+
+
+class _Settings(dict):
+    def __missing__(self, key: str) -> str:
+        raise KeyError(key)
+
+
+def _fill(text: str, policy: m.Policy, where: str) -> str:
+    """Fill ``{setting}`` placeholders of a rule text from the policy (whole numbers shown without .0)."""
+    values = _Settings()
+    for name in m.Policy.model_fields:
+        v = getattr(policy, name)
+        values[name] = f"{v:g}" if isinstance(v, float) else v
+    try:
+        return text.format_map(values)
+    except KeyError as exc:
+        raise KnowledgeError(
+            f"{where}: text names {{{exc.args[0]}}}, which is not a policy setting; allowed: {', '.join(m.Policy.model_fields)}"
+        ) from None
+    except (ValueError, IndexError):
+        raise KnowledgeError(f"{where}: text has a stray brace; write {{{{ or }}}} for a literal brace") from None
 
 
 def _ref_ok(k: Knowledge, refs: list[m.SourceRef], where: str) -> None:

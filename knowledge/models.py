@@ -302,10 +302,18 @@ class Test(Strict):
     is_not: Scalar | PolicyValue = Field(None, description="Not equal to")
     in_: list[Scalar] | None = Field(None, alias="in", description="One of")
     not_in: list[Scalar] | None = Field(None, description="None of")
-    lt: float | PolicyValue | None = Field(None, description="Less than (false when the fact is unknown)")
-    le: float | PolicyValue | None = Field(None, description="At most (false when the fact is unknown)")
-    gt: float | PolicyValue | None = Field(None, description="Greater than (false when the fact is unknown)")
-    ge: float | PolicyValue | None = Field(None, description="At least (false when the fact is unknown)")
+    lt: float | str | PolicyValue | None = Field(
+        None, description="Less than (a number, a severity or a policy setting; false when the fact is unknown)"
+    )
+    le: float | str | PolicyValue | None = Field(
+        None, description="At most (a number, a severity or a policy setting; false when the fact is unknown)"
+    )
+    gt: float | str | PolicyValue | None = Field(
+        None, description="Greater than (a number, a severity or a policy setting; false when the fact is unknown)"
+    )
+    ge: float | str | PolicyValue | None = Field(
+        None, description="At least (a number, a severity or a policy setting; false when the fact is unknown)"
+    )
     has: str | None = Field(None, description="A list-valued fact contains this item")
     known: bool | None = Field(None, description="The fact has a value (true) or is unknown (false)")
 

@@ -1,0 +1,259 @@
+"""The ``contrast-aid`` command line.
+
+Every subcommand prints its result on stdout. Bad input exits 2 with one line on stderr naming the
+field, the value given and what is allowed; there is never a traceback for bad input.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from pathlib import Path
+from typing import Any, Sequence
+
+from . import models as m
+from .errors import CaseError, ContrastAidError
+
+EXIT_BAD_INPUT = 2
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse, but a usage error is one line on stderr and exit 2."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        sys.stderr.write(f"{self.prog}: {message} (see `{self.prog} --help`)\n")
+        raise SystemExit(EXIT_BAD_INPUT)
+
+
+def _knowledge(args: argparse.Namespace):
+    from .loader import load_knowledge
+
+    return load_knowledge(getattr(args, "data", None), getattr(args, "policy", None))
+
+
+def read_case_file(path: str) -> Any:
+    """Read a case from a JSON file (``-`` for stdin). Raises CaseError with a one-line message."""
+    try:
+        text = sys.stdin.read() if path == "-" else Path(path).read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise CaseError(f"{path}: file not found") from None
+    except IsADirectoryError:
+        raise CaseError(f"{path}: is a folder, not a case file") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise CaseError(f"{path}: cannot be read ({getattr(exc, 'strerror', None) or exc})") from None
+    try:
+        return json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise CaseError(f"{path}: not valid JSON at line {exc.lineno}, column {exc.colno}: {exc.msg}") from None
+
+
+def _print_json(data: Any) -> None:
+    sys.stdout.write(json.dumps(data, indent=2, ensure_ascii=False, default=str) + "\n")
+
+
+# ----------------------------------------------------------------------------- subcommands
+def cmd_decide(args: argparse.Namespace) -> int:
+    k = _knowledge(args)
+    case = read_case_file(args.case)
+    decision = k.decide(case)
+    _print_json(decision.model_dump(mode="json"))
+    return 0
+
+
+def cmd_exams(args: argparse.Namespace) -> int:
+    k = _knowledge(args)
+    rows = [
+        {
+            "id": e.id,
+            "name": e.name,
+            "modality": e.modality.value,
+            "region": e.region,
+            "contrast": e.contrast.value,
+            "purpose": e.purpose,
+            "routes": [r.route.value for r in e.roles],
+        }
+        for e in k.tables.exams
+    ]
+    if args.json:
+        _print_json(rows)
+    else:
+        width = max(len(r["id"]) for r in rows)
+        for r in rows:
+            routes = ", ".join(r["routes"]) or "no contrast"
+            sys.stdout.write(f"{r['id']:<{width}}  {r['modality']:<12} {r['contrast']:<9} {r['name']} ({routes})\n")
+    return 0
+
+
+def cmd_agents(args: argparse.Namespace) -> int:
+    k = _knowledge(args)
+    rows = []
+    for a in k.tables.agents:
+        rows.append({
+            "id": a.id,
+            "name": a.name,
+            "agent_class": a.agent_class.value,
+            "family": a.family.value,
+            "form": a.form.value,
+            "osmolality_class": a.osmolality_class.value if a.osmolality_class else None,
+            "ionicity": a.ionicity.value if a.ionicity else None,
+            "concentrations": [f"{c.value:g} {c.unit.value}" for c in a.concentrations],
+            "routes": [r.value for r in a.routes],
+        })
+    if args.json:
+        _print_json(rows)
+    else:
+        width = max(len(r["id"]) for r in rows)
+        for r in rows:
+            osm = f"{r['osmolality_class']}-osmolar {r['ionicity'].replace('_', '-')}" if r["osmolality_class"] else ""
+            sys.stdout.write(
+                f"{r['id']:<{width}}  {r['agent_class']:<8} {r['family']:<9} {osm:<22} {', '.join(r['routes'])}\n"
+            )
+    return 0
+
+
+_EGFR_FLAGS = {"age_years": "--age", "sex": "--sex", "height_cm": "--height-cm", "creatinine.value": "--creatinine",
+               "creatinine.unit": "--unit", "creatinine": "--creatinine", "cystatin_c_mg_l": "--cystatin-c"}
+
+
+def _flag_message(message: str) -> str:
+    """Rename case field paths in a message to the egfr subcommand's flags."""
+    body = message.removeprefix("patient.")
+    for field in sorted(_EGFR_FLAGS, key=len, reverse=True):
+        if body.startswith(field + ":"):
+            return _EGFR_FLAGS[field] + body[len(field):]
+    return body
+
+
+def cmd_egfr(args: argparse.Namespace) -> int:
+    from .engine import parse_case, renal_block
+
+    patient: dict[str, Any] = {
+        "age_years": args.age,
+        "sex": args.sex,
+        "creatinine": {"value": args.creatinine, "unit": args.unit},
+    }
+    if args.height_cm is not None:
+        patient["height_cm"] = args.height_cm
+    if args.cystatin_c is not None:
+        patient["cystatin_c_mg_l"] = args.cystatin_c
+    try:
+        case = parse_case({"exam": "none", "patient": patient})
+        egfr, equation, category, note = renal_block(case.patient)
+    except ContrastAidError as exc:
+        raise CaseError(_flag_message(exc.message)) from None
+    if egfr is None:
+        raise CaseError(f"--height-cm: needed for age under 18 (bedside Schwartz); {note}")
+    result = {"egfr": round(egfr, 1), "unit": "mL/min/1.73 m2", "equation": equation, "category": category}
+    if args.json:
+        _print_json(result)
+    else:
+        sys.stdout.write(f"eGFR {egfr:.1f} mL/min/1.73 m2 ({note}); KDIGO category {category}\n")
+    return 0
+
+
+def cmd_knowledge_check(args: argparse.Namespace) -> int:
+    k = _knowledge(args)
+    c = k.counts()
+    sys.stdout.write(
+        f"knowledge ok: {c['exams']} exams, {c['agents']} agents, {c['rules']} rules, {c['sources']} sources; "
+        f"version {k.version}; policy {k.policy.id} ({k.policy_version})\n"
+    )
+    return 0
+
+
+def cmd_knowledge_schema(args: argparse.Namespace) -> int:
+    _print_json({
+        "tables": m.Tables.model_json_schema(),
+        "policy": m.Policy.model_json_schema(),
+        "case": m.Case.model_json_schema(),
+        "decision": m.Decision.model_json_schema(),
+    })
+    return 0
+
+
+def cmd_knowledge_facts(args: argparse.Namespace) -> int:
+    from .facts import catalogue_rows
+
+    for row in catalogue_rows():
+        values = f" [{row['values']}]" if row["values"] else ""
+        sys.stdout.write(f"{row['fact']:<42} {row['kind']:<7} {row['scope']:<6} {row['description']}{values}\n")
+    return 0
+
+
+def cmd_serve(args: argparse.Namespace) -> int:
+    from widgets.serve import serve  # lazy: the domain core never imports the UI
+
+    return serve(args.port, args.policy)
+
+
+# ----------------------------------------------------------------------------- parser
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="contrast-aid", description="Decision aid for choosing a contrast agent.")
+    sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
+
+    def with_policy(p: argparse.ArgumentParser) -> argparse.ArgumentParser:
+        p.add_argument("--policy", metavar="FILE", help="a local policy YAML file (default: the bundled one)")
+        return p
+
+    p = with_policy(sub.add_parser("decide", help="decide the contrast options for a case (JSON on stdout)"))
+    p.add_argument("case", metavar="CASE.json", help="the case file, or - for stdin")
+    p.set_defaults(func=cmd_decide)
+
+    p = sub.add_parser("exams", help="list the exams")
+    p.add_argument("--json", action="store_true")
+    p.set_defaults(func=cmd_exams)
+
+    p = sub.add_parser("agents", help="list the agents")
+    p.add_argument("--json", action="store_true")
+    p.set_defaults(func=cmd_agents)
+
+    p = sub.add_parser("egfr", help="estimate GFR from creatinine")
+    p.add_argument("--creatinine", type=float, required=True, metavar="V")
+    p.add_argument("--unit", required=True, metavar="U", help="mg/dL or umol/L")
+    p.add_argument("--age", type=float, required=True, metavar="A", help="years")
+    p.add_argument("--sex", required=True, metavar="S", help="female or male")
+    p.add_argument("--height-cm", type=float, metavar="H", help="needed under 18 years")
+    p.add_argument("--cystatin-c", type=float, metavar="C", help="mg/L, for the creatinine-cystatin C equation")
+    p.add_argument("--json", action="store_true")
+    p.set_defaults(func=cmd_egfr)
+
+    kn = sub.add_parser("knowledge", help="check the knowledge tables or print their schema")
+    ksub = kn.add_subparsers(dest="knowledge_command", required=True, parser_class=_Parser)
+    p = with_policy(ksub.add_parser("check", help="validate the tables and the policy, print counts"))
+    p.add_argument("--data", metavar="DIR", help="a folder of tables to check instead of the bundled one")
+    p.set_defaults(func=cmd_knowledge_check)
+    p = ksub.add_parser("schema", help="JSON Schema of the tables, policy, case and decision")
+    p.set_defaults(func=cmd_knowledge_schema)
+    p = ksub.add_parser("facts", help="the facts rule conditions may test")
+    p.set_defaults(func=cmd_knowledge_facts)
+
+    p = with_policy(sub.add_parser("serve", help="serve the dashboard with Voila (prints the URL)"))
+    p.add_argument("--port", type=int, default=8866, metavar="N")
+    p.set_defaults(func=cmd_serve)
+
+    try:  # the dose subcommand lives with the dose calculators
+        from .plans import add_dose_parser
+    except ImportError:
+        pass
+    else:
+        add_dose_parser(sub)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return args.func(args)
+    except ContrastAidError as exc:
+        sys.stderr.write(f"contrast-aid: {exc.message}\n")
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        return 130
+    except BrokenPipeError:
+        return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

@@ -1,0 +1,73 @@
+"""What the case form shows beside each input: the unit and the valid range, read from the models.
+
+The ranges come from the field constraints of :class:`knowledge.models.Patient` and from the
+calculators' validity ranges, so the form and the validation can never disagree.
+"""
+
+from __future__ import annotations
+
+import annotated_types as at
+from pydantic import BaseModel
+
+from . import models as m
+from .calculators import kidney
+
+
+def field_range(model: type[BaseModel], name: str) -> tuple[float | None, float | None]:
+    """(low, high) bounds of a numeric field, from its ge/gt/le/lt constraints (None where open)."""
+    low = high = None
+    for c in model.model_fields[name].metadata:
+        if isinstance(c, (at.Ge, at.Gt)):
+            low = float(getattr(c, "ge", getattr(c, "gt", None)))
+        elif isinstance(c, (at.Le, at.Lt)):
+            high = float(getattr(c, "le", getattr(c, "lt", None)))
+    return low, high
+
+
+def _g(x: float) -> str:
+    return f"{x:g}"
+
+
+def range_text(low: float | None, high: float | None, unit: str = "") -> str:
+    """'0–120 years', 'more than 0 mg/L', ... as shown beside an input."""
+    u = f" {unit}" if unit else ""
+    if low is not None and high is not None:
+        return f"{_g(low)}–{_g(high)}{u}"
+    if low is not None:
+        return f"from {_g(low)}{u}" if low > 0 else f"more than 0{u}"
+    if high is not None:
+        return f"up to {_g(high)}{u}"
+    return unit
+
+
+def creatinine_range(unit: str) -> tuple[float, float]:
+    """Creatinine the eGFR equations accept, in ``unit`` (kidney.CREATININE_MG_DL_RANGE, 0.1–20 mg/dL)."""
+    lo, hi = kidney.CREATININE_MG_DL_RANGE
+    return kidney.creatinine_from_mg_dl(lo, unit), kidney.creatinine_from_mg_dl(hi, unit)
+
+
+def creatinine_hint(unit: str) -> str:
+    lo, hi = creatinine_range(unit)
+    shown = "µmol/L" if unit == "umol/L" else unit
+    if unit == "umol/L":
+        return f"{lo:.0f}–{hi:.0f} {shown}"
+    return f"{lo:g}–{hi:g} {shown}"
+
+
+#: Patient numeric field -> (label, unit) shown on the form
+NUMBERS: dict[str, tuple[str, str]] = {
+    "age_years": ("Age", "years"),
+    "weight_kg": ("Weight", "kg"),
+    "height_cm": ("Height", "cm"),
+    "cystatin_c_mg_l": ("Cystatin C", "mg/L"),
+    "egfr": ("eGFR, if known", "mL/min/1.73 m²"),
+}
+
+
+def hint(name: str) -> str:
+    """Unit and range of a numeric Patient field, e.g. 'years, 0–120'."""
+    label, unit = NUMBERS[name]
+    low, high = field_range(m.Patient, name)
+    if name == "cystatin_c_mg_l":
+        low, high = kidney.CYSTATIN_C_MG_L_RANGE
+    return range_text(low, high, unit)

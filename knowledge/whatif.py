@@ -1,0 +1,140 @@
+"""What-if over kidney function: how the chosen intravascular verdict changes across eGFR 5–120.
+
+Every other factor of the case is kept; only the kidney function is replaced by an entered eGFR. The
+verdicts are piecewise constant in eGFR: they can change only where a rule compares ``renal.egfr`` with a
+number (a policy setting or a literal) or where the KDIGO 2012 G category changes (Table 5 bounds). So
+the sweep decides the case at each such breakpoint and once inside every interval between them (plus a
+coarse 10-unit grid as a safety net for facts that depend on eGFR indirectly), and merges equal neighbours
+into segments.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+from . import models as m
+from .calculators.kidney import KDIGO_CATEGORIES
+from .engine import parse_case
+from .loader import Knowledge
+
+EGFR_FACTS = ("renal.egfr", "patient.egfr")
+SWEEP_RANGE = (5.0, 120.0)
+
+
+@dataclass(frozen=True)
+class Segment:
+    """eGFR from ``low`` to ``high`` (mL/min/1.73 m²) gives ``verdict`` for ``agent`` in the role."""
+
+    low: float
+    high: float
+    verdict: m.Verdict
+    agent: str
+    agent_name: str
+    hydration: bool
+
+    @property
+    def label(self) -> str:
+        return self.verdict.value.replace("_", " ")
+
+
+@dataclass(frozen=True)
+class WhatIf:
+    route: m.Route | None
+    purpose: str
+    segments: tuple[Segment, ...]
+    note: str = ""
+
+
+def _numbers(cond: m.Condition, policy: m.Policy) -> set[float]:
+    if isinstance(cond, m.Test):
+        if cond.fact in EGFR_FACTS and cond.operator in ("lt", "le", "gt", "ge", "is", "is_not"):
+            value = cond.operand
+            if isinstance(value, m.PolicyValue):
+                value = policy.number(value.policy)
+            if isinstance(value, (int, float)) and not isinstance(value, bool):
+                return {float(value)}
+        return set()
+    children = cond.all if isinstance(cond, m.All) else cond.any if isinstance(cond, m.AnyOf) else [cond.not_]
+    out: set[float] = set()
+    for c in children:
+        out |= _numbers(c, policy)
+    return out
+
+
+def breakpoints(knowledge: Knowledge, low: float = SWEEP_RANGE[0], high: float = SWEEP_RANGE[1]) -> list[float]:
+    """eGFR values where a verdict may change: rule thresholds and KDIGO G-category bounds within range."""
+    points: set[float] = {b for _, b in KDIGO_CATEGORIES}
+    for rule in knowledge.rules.values():
+        points |= _numbers(rule.when, knowledge.policy)
+    return sorted(p for p in points if low < p < high)
+
+
+def _probe_points(knowledge: Knowledge, low: float, high: float) -> list[float]:
+    cuts = breakpoints(knowledge, low, high)
+    grid = {low, high} | set(cuts)
+    x = low
+    while x < high:
+        grid.add(round(x, 3))
+        x += 10.0
+    edges = sorted(grid)
+    probes = set(edges)
+    for a, b in zip(edges, edges[1:]):
+        probes.add(round((a + b) / 2, 3))
+    return sorted(probes)
+
+
+def _role_index(exam: m.Exam) -> int | None:
+    for want in (m.Route.intravenous, m.Route.intra_arterial):
+        for i, role in enumerate(exam.roles):
+            if role.route is want:
+                return i
+    return None
+
+
+def egfr_sweep(case: m.Case | dict[str, Any], knowledge: Knowledge,
+               low: float = SWEEP_RANGE[0], high: float = SWEEP_RANGE[1]) -> WhatIf:
+    """Segments of the chosen option's verdict of the exam's intravenous (else intra-arterial) role.
+
+    Raises :class:`knowledge.errors.CaseError` for an invalid case, like ``decide``.
+    """
+    case = parse_case(case)
+    exam = knowledge.exams.get(case.exam)
+    if exam is None:
+        knowledge.decide(case)  # raises the usual CaseError naming the exam
+    idx = _role_index(exam)
+    if idx is None:
+        return WhatIf(None, "", (), note=f"{exam.name} has no intravascular contrast, so eGFR does not change the choice")
+    role = exam.roles[idx]
+    base_patient = case.patient.model_dump(exclude={"creatinine", "cystatin_c_mg_l", "egfr"})
+    samples: list[tuple[float, m.Option, bool]] = []
+    for x in _probe_points(knowledge, low, high):
+        patient = m.Patient.model_validate({**base_patient, "egfr": x})
+        decision = knowledge.decide(case.model_copy(update={"patient": patient}))
+        opt = next(o for o in decision.roles[idx].options if o.chosen)
+        samples.append((x, opt, decision.renal.hydration_indicated))
+    cuts = breakpoints(knowledge, low, high)
+    segments: list[Segment] = []
+    prev_x = low
+    for x, opt, hyd in samples:
+        last = segments[-1] if segments else None
+        if last and last.verdict is opt.verdict and last.agent == opt.agent and last.hydration == hyd:
+            segments[-1] = Segment(last.low, x, last.verdict, last.agent, last.agent_name, hyd)
+        else:
+            if last:
+                # the change lies between prev_x and x: at the breakpoint there if any (lt/le both change at it)
+                inside = [c for c in cuts if prev_x <= c <= x]
+                edge = inside[0] if inside else (prev_x + x) / 2
+                segments[-1] = Segment(last.low, edge, last.verdict, last.agent, last.agent_name, last.hydration)
+            else:
+                edge = x
+            segments.append(Segment(edge, x, opt.verdict, opt.agent, opt.name, hyd))
+        prev_x = x
+    return WhatIf(role.route, role.purpose, tuple(segments))
+
+def verdict_at(whatif: WhatIf, egfr: float) -> Segment | None:
+    """The segment an eGFR falls in (the upper segment at a boundary), or None outside the sweep."""
+    for seg in reversed(whatif.segments):
+        if seg.low <= egfr <= seg.high:
+            return seg
+    return None
