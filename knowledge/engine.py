@@ -18,6 +18,7 @@ from . import models as m
 from .calculators import kidney
 from .errors import CaseError, ContrastAidError
 from .loader import Knowledge, load_knowledge
+from .plans import add_plans
 from .validation import describe
 
 DECISION_SUPPORT = (
@@ -192,7 +193,12 @@ def decide(case: Any, knowledge: Knowledge | None = None) -> m.Decision:
         options = []
         for rank, (_, agent, verdict, reasons, actions, rule_flags, lifted) in enumerate(scored, start=1):
             chosen = agent.id == chosen_id
-            if chosen:
+            # With no agent requested, every usual agent still open to the radiologist (suitable, with or
+            # without precautions) raises its flags too, so choosing carbon dioxide first never hides the
+            # hydration an iodinated alternative would need. A requested agent raises only its own.
+            in_plan = chosen or (case.agent is None and agent.id in pref
+                                 and verdict.severity <= m.Verdict.suitable_with_precautions.severity)
+            if in_plan:
                 flags |= rule_flags
                 chosen_iodinated |= agent.family is m.Family.iodinated and role.route in _SYSTEMIC
                 for text in lifted:
@@ -223,7 +229,7 @@ def decide(case: Any, knowledge: Knowledge | None = None) -> m.Decision:
                   "is re-checked" if metformin_hold else "Continue metformin")
     else:
         advice = None
-    return m.Decision(
+    decision = m.Decision(
         exam=exam.id,
         exam_name=exam.name,
         contrast_needed=any(r.required for r in exam.roles),
@@ -243,3 +249,5 @@ def decide(case: Any, knowledge: Knowledge | None = None) -> m.Decision:
         policy=pol.id,
         knowledge_version=k.version,
     )
+    # numbers and clock times for the precautions: dose, renal limits, premedication, metformin (plans.py)
+    return add_plans(case, k, decision)

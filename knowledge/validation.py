@@ -48,7 +48,7 @@ def dotted(loc: tuple) -> str:
 def _one(model: type[BaseModel], err: dict, prefix: str) -> str:
     # unions add their member names to loc ("function-after[...]", "Test", ...): drop them
     loc = tuple(p for p in err["loc"] if isinstance(p, int) or ("[" not in p and not p[:1].isupper()))
-    field = (prefix + "." if prefix else "") + dotted(loc) if loc else (prefix or "(top level)")
+    field = (prefix + "." if prefix else "") + dotted(loc) if loc else prefix
     etype, ctx, given = err["type"], err.get("ctx") or {}, err.get("input")
     if etype == "extra_forbidden":
         owner = _model_at(model, loc)
@@ -62,9 +62,11 @@ def _one(model: type[BaseModel], err: dict, prefix: str) -> str:
               "less_than_equal": "at most"}
     if etype in bounds:
         limit = next(iter(ctx.values()))
+        limit = f"{limit:g}" if isinstance(limit, float) else limit
         return f"{field}: {show(given)} is out of range; allowed: {bounds[etype]} {limit}"
     if etype == "value_error":
-        return f"{field}: {str(ctx.get('error', err['msg']))}"
+        text = str(ctx.get("error", err["msg"]))
+        return f"{field}: {text}" if field else text
     return f"{field}: {show(given)} is not valid ({err['msg'].lower()})"
 
 

@@ -1,0 +1,31 @@
+"""Clinical scenarios as data (tests/vectors/scenarios.yaml), each naming its source."""
+
+from __future__ import annotations
+
+import pytest
+
+from knowledge.loader import load_knowledge
+from tests.scenarios import check, load_vectors
+
+VECTORS = load_vectors()
+
+
+@pytest.fixture(scope="module")
+def knowledge():
+    return load_knowledge()
+
+
+def test_enough_scenarios_each_with_a_source():
+    assert len(VECTORS) >= 40
+    ids = [v["id"] for v in VECTORS]
+    assert len(ids) == len(set(ids)), "scenario ids must be unique"
+    for v in VECTORS:
+        assert v.get("source"), f"{v['id']} names no source"
+        assert v.get("expect"), f"{v['id']} expects nothing"
+
+
+@pytest.mark.parametrize("vector", VECTORS, ids=[v["id"] for v in VECTORS])
+def test_scenario(vector, knowledge):
+    decision = knowledge.decide(vector["case"])
+    problems = check(decision, vector["expect"])
+    assert not problems, f"{vector['id']} ({vector['source']}):\n  " + "\n  ".join(problems)
