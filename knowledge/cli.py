@@ -143,7 +143,8 @@ def cmd_egfr(args: argparse.Namespace) -> int:
     except ContrastAidError as exc:
         raise CaseError(_flag_message(exc.message)) from None
     if egfr is None:
-        raise CaseError(f"--height-cm: needed for age under 18 (bedside Schwartz); {note}")
+        raise CaseError("--height-cm: missing; allowed: a height in cm (the bedside Schwartz equation needs it "
+                        "under 18 years)")
     result = {"egfr": round(egfr, 1), "unit": "mL/min/1.73 m2", "equation": equation, "category": category}
     if args.json:
         _print_json(result)

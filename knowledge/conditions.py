@@ -53,14 +53,65 @@ def _check_value(spec, value: Any, where: str) -> None:
         raise KnowledgeError(f"{where}: fact {spec.name} is a number; got {value!r}")
 
 
+#: Facts fixed by the exam, the role, the agent and the policy: known before any patient is seen.
+STATIC_PREFIXES = ("exam.", "role.", "agent.", "policy.")
+
+
+def _all(parts: list[Compiled]) -> Compiled:
+    def test(f: Facts) -> bool:
+        for p in parts:
+            if not p(f):
+                return False
+        return True
+
+    return test
+
+
+def _any(parts: list[Compiled]) -> Compiled:
+    def test(f: Facts) -> bool:
+        for p in parts:
+            if p(f):
+                return True
+        return False
+
+    return test
+
+
+def compile_partial(cond: m.Condition, policy: m.Policy) -> Callable[[Facts], bool | None]:
+    """A three-valued closure over the static facts only: True, False, or None where it depends on the
+    patient. Used at load to index which rules can possibly fire for an exam role and agent."""
+    if isinstance(cond, (m.All, m.AnyOf)):
+        parts = [compile_partial(c, policy) for c in (cond.all if isinstance(cond, m.All) else cond.any)]
+        decisive = isinstance(cond, m.AnyOf)  # True decides an 'any', False decides an 'all'
+
+        def test(f: Facts) -> bool | None:
+            unknown = False
+            for p in parts:
+                v = p(f)
+                if v is None:
+                    unknown = True
+                elif v is decisive:
+                    return decisive
+            return None if unknown else not decisive
+
+        return test
+    if isinstance(cond, m.Not):
+        inner = compile_partial(cond.not_, policy)
+        return lambda f: None if (v := inner(f)) is None else not v
+    if not cond.fact.startswith(STATIC_PREFIXES):
+        return lambda f: None
+    full = compile_condition(cond, policy, "partial", m.Scope.agent)
+    return lambda f: bool(full(f))
+
+
 def compile_condition(cond: m.Condition, policy: m.Policy, where: str, scope: m.Scope) -> Compiled:
     """Check ``cond`` and return a closure ``facts -> bool``. ``where`` names the rule for messages."""
     if isinstance(cond, m.All):
-        parts = [compile_condition(c, policy, where, scope) for c in cond.all]
-        return lambda f: all(p(f) for p in parts)
+        # patient tests first: they are usually false, so most rules stop at their first test
+        ordered = sorted(cond.all, key=lambda c: all(f.startswith(STATIC_PREFIXES) for f in facts_used(c)))
+        return _all([compile_condition(c, policy, where, scope) for c in ordered])
     if isinstance(cond, m.AnyOf):
-        parts = [compile_condition(c, policy, where, scope) for c in cond.any]
-        return lambda f: any(p(f) for p in parts)
+        return _any([compile_condition(c, policy, where, scope) for c in cond.any])
     if isinstance(cond, m.Not):
         inner = compile_condition(cond.not_, policy, where, scope)
         return lambda f: not inner(f)

@@ -17,7 +17,7 @@ from pydantic import ValidationError
 from . import models as m
 from .calculators import kidney
 from .errors import CaseError, ContrastAidError
-from .loader import Knowledge, load_knowledge
+from .loader import Knowledge, exam_facts, load_knowledge
 from .plans import add_plans
 from .validation import describe
 
@@ -81,8 +81,8 @@ def _worst(reactions: list[m.PriorReaction], kind: str, family: str | None = Non
     return _SEVERITY_NAME[worst]
 
 
-def case_facts(case: m.Case, exam: m.Exam, egfr: float | None, category: str | None,
-               policy: m.Policy) -> dict[str, Any]:
+def case_facts(case: m.Case, egfr: float | None, category: str | None) -> dict[str, Any]:
+    """The patient facts of a case (exam, role and agent facts are indexed at load: loader.static_facts)."""
     p = case.patient
     facts: dict[str, Any] = {}
     for name in m.Patient.model_fields:
@@ -94,39 +94,18 @@ def case_facts(case: m.Case, exam: m.Exam, egfr: float | None, category: str | N
     facts["renal.category"] = category
     facts["history.allergic_like_worst"] = _worst(p.prior_reactions, "allergic_like")
     facts["history.physiologic_worst"] = _worst(p.prior_reactions, "physiologic")
-    facts["policy.metformin_hold_first_pass"] = policy.metformin_hold_first_pass
-    facts["exam.id"] = exam.id
-    facts["exam.modality"] = exam.modality.value
-    facts["exam.contrast"] = exam.contrast.value
-    facts["exam.tags"] = tuple(exam.tags)
-    facts["exam.has_intravascular_role"] = any(r.route in m.INTRAVASCULAR for r in exam.roles)
+    facts["history.allergic_like_same_family"] = "none"
+    facts["history.physiologic_same_family"] = "none"
+    facts["history.culprit_agent"] = False
     return facts
 
 
-def _option_facts(base: dict[str, Any], role: m.ExamRole, agent: m.Agent, reactions) -> dict[str, Any]:
-    f = dict(base)
-    f["role.route"] = role.route.value
-    f["role.intravascular"] = role.route in m.INTRAVASCULAR
-    f["role.renal_exposure"] = role.renal_exposure.value
-    f["role.territory"] = role.territory.value
-    f["role.catheter_study"] = role.catheter_study
-    f["agent.id"] = agent.id
-    f["agent.family"] = agent.family.value
-    f["agent.class"] = agent.agent_class.value
-    f["agent.form"] = agent.form.value
-    f["agent.osmolality_class"] = agent.osmolality_class.value if agent.osmolality_class else None
-    f["agent.ionicity"] = agent.ionicity.value if agent.ionicity else None
-    f["agent.labelled_for_route"] = role.route in agent.routes
-    f["agent.usual_for_role"] = agent.id in role.agents
-    if reactions:
-        f["history.allergic_like_same_family"] = _worst(reactions, "allergic_like", agent.family.value)
-        f["history.physiologic_same_family"] = _worst(reactions, "physiologic", agent.family.value)
-        f["history.culprit_agent"] = any(r.agent == agent.id for r in reactions)
-    else:
-        f["history.allergic_like_same_family"] = "none"
-        f["history.physiologic_same_family"] = "none"
-        f["history.culprit_agent"] = False
-    return f
+def _history_facts(reactions: list[m.PriorReaction], agent: m.Agent) -> dict[str, Any]:
+    return {
+        "history.allergic_like_same_family": _worst(reactions, "allergic_like", agent.family.value),
+        "history.physiologic_same_family": _worst(reactions, "physiologic", agent.family.value),
+        "history.culprit_agent": any(r.agent == agent.id for r in reactions),
+    }
 
 
 def decide(case: Any, knowledge: Knowledge | None = None) -> m.Decision:
@@ -157,28 +136,30 @@ def decide(case: Any, knowledge: Knowledge | None = None) -> m.Decision:
     except ContrastAidError as exc:
         raise CaseError(f"patient.{exc.message}", field=f"patient.{exc.field}") from None
 
-    base = case_facts(case, exam, egfr, category, k.policy)
+    base = case_facts(case, egfr, category)
     reactions = case.patient.prior_reactions
     flags: set[m.Flag] = set()
     cautions: list[str] = [DECISION_SUPPORT]
     roles: list[m.RoleDecision] = []
     chosen_iodinated = False
 
-    for role in exam.roles:
+    for index, role in enumerate(exam.roles):
         pref = {aid: i for i, aid in enumerate(role.agents)}
         scored = []
-        for agent in k.compatible[role.route]:
-            facts = _option_facts(base, role, agent, reactions)
+        for agent, static, candidate_rules in k.candidates[(exam.id, index)]:
+            facts = {**base, **static}
+            if reactions:
+                facts.update(_history_facts(reactions, agent))
             reasons, actions, rule_flags, lifted = [], [], set(), []
             verdict = m.Verdict.suitable
-            for cr in k.agent_rules:
+            for cr in candidate_rules:
                 if not cr.test(facts):
                     continue
                 rule = cr.rule
                 eff = rule.effect
                 if eff.verdict is not None and eff.verdict.severity > verdict.severity:
                     verdict = eff.verdict
-                reasons.append(m.Reason(rule=rule.id, text=cr.text, verdict=eff.verdict,
+                reasons.append(m.Reason.model_construct(rule=rule.id, text=cr.text, verdict=eff.verdict,
                                         source=cr.source_text, certainty=rule.certainty))
                 for act in cr.actions:
                     if act not in actions:
@@ -204,16 +185,16 @@ def decide(case: Any, knowledge: Knowledge | None = None) -> m.Decision:
                 for text in lifted:
                     if text not in cautions:
                         cautions.append(text)
-            options.append(m.Option(
+            options.append(m.Option.model_construct(
                 agent=agent.id, name=agent.name, agent_class=agent.agent_class, family=agent.family,
                 osmolality_class=agent.osmolality_class, verdict=verdict, rank=rank, chosen=chosen,
                 reasons=reasons, actions=actions))
         roles.append(m.RoleDecision(route=role.route, purpose=role.purpose, required=role.required,
                                     options=options))
 
-    base["exam.has_iodinated_choice"] = chosen_iodinated
+    case_level = {**base, **exam_facts(exam, k.policy)}
     for cr in k.case_rules:
-        if cr.test(base):
+        if cr.test(case_level):
             if cr.text not in cautions:
                 cautions.append(cr.text)
             flags.update(cr.rule.effect.flags)

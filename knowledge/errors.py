@@ -36,7 +36,7 @@ class RangeError(CaseError):
 
 def show(value: Any) -> str:
     """Render a value given by the user for an error message, kept short."""
-    text = repr(value)
+    text = f"{value:g}" if isinstance(value, float) else repr(value)
     return text if len(text) <= 60 else text[:57] + "..."
 
 

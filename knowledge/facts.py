@@ -60,7 +60,6 @@ _add("exam.modality", "enum", "Exam modality", _enum(m.Modality))
 _add("exam.contrast", "enum", "Whether the exam uses contrast", _enum(m.ContrastUse))
 _add("exam.tags", "list", "Exam tags")
 _add("exam.has_intravascular_role", "bool", "The exam gives contrast intravenously or intra-arterially")
-_add("exam.has_iodinated_choice", "bool", "A chosen agent of the exam is iodinated")
 
 # per role and agent
 _add("role.route", "enum", "Route of the role", _enum(m.Route), "agent")

@@ -71,3 +71,25 @@ def hint(name: str) -> str:
     if name == "cystatin_c_mg_l":
         low, high = kidney.CYSTATIN_C_MG_L_RANGE
     return range_text(low, high, unit)
+
+
+def case_problems(data: dict) -> list[tuple[str, str]]:
+    """Every validation problem of a case dict as (field, one-line message), for showing beside each input.
+
+    The messages are those of :func:`knowledge.engine.parse_case` (same wording), but all of them, not
+    just the first. An empty list means the case is well formed (the engine may still find, say, an
+    unknown exam or a creatinine outside the equation's range; it raises CaseError naming the field).
+    """
+    from pydantic import ValidationError
+
+    from .validation import _one, dotted
+
+    try:
+        m.Case.model_validate(data)
+    except ValidationError as exc:
+        out = []
+        for err in exc.errors(include_url=False):
+            loc = tuple(p for p in err["loc"] if isinstance(p, int) or ("[" not in p and not p[:1].isupper()))
+            out.append((dotted(loc), _one(m.Case, err, "")))
+        return out
+    return []

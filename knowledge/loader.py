@@ -17,11 +17,13 @@ import yaml
 from pydantic import ValidationError
 
 from . import models as m
-from .conditions import Compiled, compile_condition
+from .conditions import Compiled, compile_condition, compile_partial
 from .errors import KnowledgeError
 from .validation import describe
 
 DATA_DIR = Path(__file__).parent / "data"
+#: libyaml's C loader when PyYAML was built with it (same safe subset, several times faster)
+_YAML_LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 DEFAULT_POLICY = DATA_DIR / "policies" / "default.yaml"
 TABLES = ("sources", "agents", "routes", "exams", "rules")
 
@@ -47,6 +49,9 @@ class Knowledge:
     agents: dict[str, m.Agent] = field(default_factory=dict)
     exams: dict[str, m.Exam] = field(default_factory=dict)
     rules: dict[str, m.Rule] = field(default_factory=dict)
+    #: (exam id, role index) -> [(agent, static facts, agent rules that can fire for it)], built at load
+    candidates: dict[tuple[str, int], list[tuple[m.Agent, dict[str, Any], list["CompiledRule"]]]] = field(
+        default_factory=dict)
     compatible: dict[m.Route, list[m.Agent]] = field(default_factory=dict)
     agent_rules: list[CompiledRule] = field(default_factory=list)
     case_rules: list[CompiledRule] = field(default_factory=list)
@@ -90,7 +95,7 @@ def _read_yaml(path: Path) -> Any:
     except OSError as exc:
         raise KnowledgeError(f"{path}: cannot be read ({exc.strerror})") from None
     try:
-        return yaml.safe_load(text), text.encode("utf-8")
+        return yaml.load(text, Loader=_YAML_LOADER), text.encode("utf-8")
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         at = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
@@ -173,7 +178,55 @@ def load_knowledge(data_dir: Path | str | None = None, policy: Path | str | None
                                 k.cite(rule.sources, rule.certainty), _fill(rule.text, pol, where),
                                 tuple(_fill(a, pol, where) for a in rule.effect.actions))
         (k.agent_rules if rule.scope is m.Scope.agent else k.case_rules).append(compiled)
+    _build_candidates(k)
     return k
+
+
+def exam_facts(exam: m.Exam, policy: m.Policy) -> dict[str, Any]:
+    """The facts fixed by the exam and the policy (see knowledge/facts.py)."""
+    return {
+        "exam.id": exam.id,
+        "exam.modality": exam.modality.value,
+        "exam.contrast": exam.contrast.value,
+        "exam.tags": tuple(exam.tags),
+        "exam.has_intravascular_role": any(r.route in m.INTRAVASCULAR for r in exam.roles),
+        "policy.metformin_hold_first_pass": policy.metformin_hold_first_pass,
+    }
+
+
+def static_facts(exam: m.Exam, role: m.ExamRole, agent: m.Agent, policy: m.Policy) -> dict[str, Any]:
+    """The facts fixed by the exam, role, agent and policy (see knowledge/facts.py)."""
+    return {
+        **exam_facts(exam, policy),
+        "role.route": role.route.value,
+        "role.intravascular": role.route in m.INTRAVASCULAR,
+        "role.renal_exposure": role.renal_exposure.value,
+        "role.territory": role.territory.value,
+        "role.catheter_study": role.catheter_study,
+        "agent.id": agent.id,
+        "agent.family": agent.family.value,
+        "agent.class": agent.agent_class.value,
+        "agent.form": agent.form.value,
+        "agent.osmolality_class": agent.osmolality_class.value if agent.osmolality_class else None,
+        "agent.ionicity": agent.ionicity.value if agent.ionicity else None,
+        "agent.labelled_for_route": role.route in agent.routes,
+        "agent.usual_for_role": agent.id in role.agents,
+    }
+
+
+def _build_candidates(k: Knowledge) -> None:
+    """Index, per exam role and agent, the rules whose exam/role/agent/policy tests do not already fail.
+
+    A speed-up only: the full condition is still tested on every decision."""
+    partial = [(cr, compile_partial(cr.rule.when, k.policy)) for cr in k.agent_rules]
+    for exam in k.tables.exams:
+        for i, role in enumerate(exam.roles):
+            rows = []
+            for agent in k.compatible[role.route]:
+                facts = static_facts(exam, role, agent, k.policy)
+                rules = [cr for cr, test in partial if test(facts) is not False]
+                rows.append((agent, facts, rules))
+            k.candidates[(exam.id, i)] = rows
 
 
 class _Settings(dict):

@@ -447,6 +447,19 @@ class Policy(Strict):
     first_pass_iodine_g_per_gfr_max: float | None = Field(
         None, description="Optional first-pass intra-arterial cap, g iodine / absolute GFR", gt=0
     )
+    bsa_formula: Literal["du_bois", "mosteller"] = Field(
+        "du_bois", description="Body surface area formula for the absolute GFR (du_bois 1916 or mosteller 1987)"
+    )
+    hydration_ml_kg_h: float = Field(
+        1.0, description="Hydration rate for the weight-based plan, mL/kg/h (ACR-NKF 2020: 1-3)", ge=0.5, le=3
+    )
+    hydration_hours_before: float = Field(
+        1.0, description="Hours of hydration before contrast (ACR-NKF 2020: start about 1 h before)", ge=0, le=12
+    )
+    hydration_hours_after: float = Field(
+        6.0, description="Hours of hydration after contrast (ACR-NKF 2020: 3-12 h; 6 h is common practice)",
+        ge=0, le=12
+    )
 
     def number(self, name: str) -> float:
         value = getattr(self, name)
@@ -512,6 +525,10 @@ class Patient(Strict):
     heart_failure: bool = Field(False, description="Heart failure that limits IV fluids")
     myasthenia_gravis: bool = Field(False, description="Myasthenia gravis")
     inpatient: bool = Field(False, description="Inpatient or acutely ill")
+    kidney_disease_history: bool = Field(
+        False, description="History of kidney disease: kidney transplant, single kidney, kidney cancer or kidney surgery"
+    )
+    diabetes: bool = Field(False, description="Diabetes mellitus treated with insulin or other prescribed drugs")
     iv_access: IVAccess | None = Field(None, description="The planned IV catheter")
 
 
@@ -523,6 +540,9 @@ class Case(Strict):
     agent: str | None = Field(None, description="A requested agent id to plan for")
     planned_flow_ml_s: float | None = Field(None, description="Override of the protocol flow, mL/s", gt=0, le=10)
     planned_volume_ml: float | None = Field(None, description="Override of the protocol volume, mL", gt=0, le=300)
+    planned_concentration_mg_i_ml: float | None = Field(
+        None, description="Requested strength of the chosen agent, mg I/mL (must be one of its strengths)", gt=0, le=480
+    )
 
 
 # --------------------------------------------------------------------------------------------------
@@ -549,11 +569,74 @@ class Option(Strict):
     actions: list[str]
 
 
+class Viscosity(Strict):
+    """Viscosity of the chosen strength at room and body temperature (catalogue values)."""
+
+    at_20c: float | None = Field(None, description="Viscosity at 20 °C, mPa·s (catalogue)")
+    at_37c: float | None = Field(None, description="Viscosity at 37 °C, mPa·s (catalogue)")
+    warming_pressure_ratio: float | None = Field(
+        None, description="Injection pressure at 37 °C / at 20 °C for the same flow and catheter (Hagen-Poiseuille)"
+    )
+    certainty: Certainty | None = Field(None, description="How the catalogue figures are known")
+    source: str | None = Field(None, description="Where the figures come from")
+
+
+class DoseBlock(Strict):
+    """The worked dose of an intravascular iodinated role (``knowledge/plans.py``). Case overrides
+    (``planned_volume_ml``, ``planned_flow_ml_s``) apply to the exam's first intravascular role."""
+
+    agent: str = Field(description="Id of the chosen agent the dose is for")
+    concentration_mg_i_ml: float = Field(description="Strength used, mg I/mL")
+    concentration_choice: str = Field(description="How the strength was picked from the agent's strengths")
+    volume_ml: float | None = Field(description="Volume to inject, mL (null when it cannot be worked out)")
+    volume_basis: str = Field(description="What the volume comes from")
+    iodine_g: float | None = Field(description="Grams of iodine in the volume")
+    flow_ml_s: float | None = Field(description="Injection rate, mL/s (null for a hand injection with no rate)")
+    iodine_delivery_rate_g_s: float | None = Field(description="Iodine delivery rate, g I/s")
+    duration_s: float | None = Field(description="Injection duration, s")
+    access_ok: bool | None = Field(None, description="The IV catheter fits the flow (null: no access given or arterial)")
+    access_message: str | None = Field(None, description="Why the access is or is not fit (ACR Manual wording)")
+    viscosity_mpas: Viscosity | None = Field(None, description="Viscosity of the strength at 20 and 37 °C")
+    warnings: list[str] = Field(default_factory=list, description="Caps, missing data and other cautions")
+
+
 class RoleDecision(Strict):
     route: Route
     purpose: str
     required: bool
     options: list[Option]
+    dose: DoseBlock | None = Field(
+        None, description="Worked dose of the chosen agent, for intravascular roles with an iodinated choice"
+    )
+
+
+class DoseLimits(Strict):
+    """Renal dose limits of the planned intravascular iodine (sums over the exam's intravascular roles)."""
+
+    iodine_g: float | None = Field(None, description="Total grams of iodine planned")
+    iodine_g_per_gfr: float | None = Field(None, description="g iodine / absolute GFR (mL/min)")
+    iodine_g_per_gfr_max: float = Field(description="Policy flag level for g iodine / absolute GFR")
+    iodine_g_per_gfr_exceeded: bool | None = Field(None, description="The ratio reaches the policy level")
+    first_pass_iodine_g_per_gfr_max: float | None = Field(
+        None, description="Policy cap for first-pass intra-arterial doses (ESUR), if the policy sets one"
+    )
+    volume_ml_per_gfr: float | None = Field(None, description="mL contrast / absolute GFR (ESUR first-pass < 3.0)")
+    cigarroa_max_ml: float | None = Field(None, description="Cigarroa maximum volume for catheter studies, mL")
+    catheter_volume_ml: float | None = Field(None, description="Planned volume of the catheter study roles, mL")
+    cigarroa_exceeded: bool | None = Field(None, description="The planned catheter volume is above the Cigarroa limit")
+    messages: list[str] = Field(default_factory=list, description="What the limits mean for this plan")
+
+
+class HydrationPlanBlock(Strict):
+    fluid: str = Field(description="IV fluid")
+    rate_ml_h: float = Field(description="Infusion rate, mL/h")
+    rate_ml_kg_h: float = Field(description="Rate per kg, mL/kg/h (policy)")
+    start_at: dt.datetime | None = Field(None, description="Start time (exam time − hours before)")
+    stop_at: dt.datetime | None = Field(None, description="Stop time (exam time + hours after)")
+    volume_before_ml: float = Field(description="Volume before contrast, mL")
+    volume_after_ml: float = Field(description="Volume after contrast, mL")
+    total_ml: float = Field(description="Total volume, mL")
+    warnings: list[str] = Field(default_factory=list, description="Heart-failure caution and the like")
 
 
 class RenalBlock(Strict):
@@ -563,17 +646,48 @@ class RenalBlock(Strict):
     hydration_indicated: bool
     hydration_regimen: str | None = Field(None, description="Hydration regimen of the policy, when indicated")
     note: str | None = Field(None, description="Why no eGFR could be worked out, or how it was")
+    bsa_m2: float | None = Field(None, description="Body surface area, m² (needs weight and height)")
+    bsa_formula: str | None = Field(None, description="du_bois or mosteller (policy bsa_formula)")
+    absolute_gfr_ml_min: float | None = Field(None, description="eGFR · BSA / 1.73, mL/min")
+    creatinine_age_days: float | None = Field(None, description="Age of the creatinine at the exam time, days")
+    creatinine_max_age_days: float | None = Field(
+        None, description="Oldest acceptable creatinine for this patient, days (policy, outpatient or inpatient)"
+    )
+    creatinine_stale: bool | None = Field(None, description="The creatinine is older than the policy allows")
+    creatinine_required: bool = Field(
+        False, description="A recent creatinine is required (intravascular iodinated contrast and a risk factor)"
+    )
+    creatinine_required_because: list[str] = Field(default_factory=list, description="The risk factors found")
+    dose_limits: DoseLimits | None = Field(None, description="Renal dose limits, for intravascular iodinated doses")
+    hydration_plan: HydrationPlanBlock | None = Field(None, description="Weight-based plan, when hydration is indicated")
+    warnings: list[str] = Field(default_factory=list, description="Missing or stale creatinine and similar")
+
+
+class ScheduleItem(Strict):
+    at: dt.datetime | None = Field(description="Clock time of the dose (null without an exam time)")
+    hours_before: float | None = Field(description="Hours before the exam")
+    drug: str = Field(description="Generic drug name")
+    dose: str = Field(description="Dose with unit")
+    route: str = Field(description="oral or intravenous")
+    optional: bool = Field(False, description="Optional in the source")
 
 
 class PremedicationBlock(Strict):
     indicated: bool
-    regimen: str | None = Field(None, description="Id of the regimen of the policy, when indicated")
+    regimen: str | None = Field(None, description="Id of the regimen laid out (accelerated when time is short)")
+    regimen_name: str | None = Field(None, description="Name of that regimen")
+    lead_hours: float | None = Field(None, description="Hours from as_of to the exam")
+    schedule: list[ScheduleItem] = Field(default_factory=list, description="Doses as clock times")
+    warnings: list[str] = Field(default_factory=list, description="Not enough time, missing exam time, …")
 
 
 class MetforminBlock(Strict):
     hold: bool
     takes_metformin: bool
     advice: str | None = Field(None, description="What to do about metformin")
+    hold_from: dt.datetime | None = Field(None, description="Stop metformin from this time (the exam time)")
+    recheck_after_hours: float | None = Field(None, description="Hours after contrast to re-check kidney function")
+    recheck_at: dt.datetime | None = Field(None, description="When kidney function is re-checked before restarting")
 
 
 class Decision(Strict):

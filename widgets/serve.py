@@ -73,8 +73,6 @@ def voila_arguments(port: int) -> list[str]:
         f"--template={TEMPLATE}",
         "--theme=light",
         "--VoilaConfiguration.show_tracebacks=False",
-        # The notebook folder holds only the notebook and the template: serve no files from it.
-        "--VoilaConfiguration.file_allowlist=[]",
     ]
 
 

@@ -114,25 +114,27 @@ class DosePlan:
 
     concentration_mg_i_ml: float
     concentration_choice: str
-    flow_ml_s: float
+    flow_ml_s: float | None
     volume_ml: float | None
     volume_basis: str
     iodine_g: float | None
-    iodine_delivery_rate_g_s: float
+    iodine_delivery_rate_g_s: float | None
     duration_s: float | None
     capped: bool = False
     warnings: list[str] = field(default_factory=list)
 
 
-def plan_dose(*, concentration_mg_i_ml: float, flow_ml_s: float, weight_kg: float | None = None,
+def plan_dose(*, concentration_mg_i_ml: float, flow_ml_s: float | None, weight_kg: float | None = None,
               iodine_g_per_kg: float | None = None, fixed_volume_ml: float | None = None,
               max_volume_ml: float = 150.0, scan_duration_s: float | None = None, duration_offset_s: float = 0.0,
               planned_volume_ml: float | None = None, concentration_choice: str = "") -> DosePlan:
     """Work out a dose plan. The volume comes from, in order: a planned volume; the scan duration and flow
     (angiographic CT); a weight-based iodine dose; a fixed protocol volume. A computed volume is capped at
-    ``max_volume_ml`` (flagged); a planned volume above the cap is kept and flagged, never changed."""
+    ``max_volume_ml`` (flagged); a planned volume above the cap is kept and flagged, never changed.
+    Without a flow (hand injection in a catheter study) the rate, delivery rate and duration are None."""
     _check("max_volume_ml", max_volume_ml, VOLUME_RANGE, "mL")
-    idr = iodine_delivery_rate(concentration_mg_i_ml, flow_ml_s)
+    _check("concentration_mg_i_ml", concentration_mg_i_ml, CONCENTRATION_RANGE, "mg I/mL")
+    idr = iodine_delivery_rate(concentration_mg_i_ml, flow_ml_s) if flow_ml_s is not None else None
     warnings: list[str] = []
     capped = False
     volume: float | None
@@ -142,7 +144,7 @@ def plan_dose(*, concentration_mg_i_ml: float, flow_ml_s: float, weight_kg: floa
         if volume > max_volume_ml:
             warnings.append(f"Planned volume {volume:g} mL is above the protocol maximum {max_volume_ml:g} mL")
     else:
-        if scan_duration_s is not None:
+        if scan_duration_s is not None and flow_ml_s is not None:
             volume = volume_for_scan(flow_ml_s, scan_duration_s, duration_offset_s)
             basis = f"flow {flow_ml_s:g} mL/s × (scan {scan_duration_s:g} s + {duration_offset_s:g} s)"
         elif iodine_g_per_kg is not None and weight_kg is not None:
@@ -158,7 +160,7 @@ def plan_dose(*, concentration_mg_i_ml: float, flow_ml_s: float, weight_kg: floa
             warnings.append(f"Volume {volume:.0f} mL capped at the protocol maximum {max_volume_ml:g} mL")
             volume, capped = float(max_volume_ml), True
     iodine = iodine_grams(volume, concentration_mg_i_ml) if volume is not None else None
-    duration = injection_duration(volume, flow_ml_s) if volume is not None else None
+    duration = injection_duration(volume, flow_ml_s) if (volume is not None and flow_ml_s is not None) else None
     return DosePlan(concentration_mg_i_ml=concentration_mg_i_ml, concentration_choice=concentration_choice,
-                    flow_ml_s=float(flow_ml_s), volume_ml=volume, volume_basis=basis, iodine_g=iodine,
+                    flow_ml_s=float(flow_ml_s) if flow_ml_s is not None else None, volume_ml=volume, volume_basis=basis, iodine_g=iodine,
                     iodine_delivery_rate_g_s=idr, duration_s=duration, capped=capped, warnings=warnings)

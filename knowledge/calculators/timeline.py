@@ -1,0 +1,143 @@
+"""Clock times: premedication schedules and the metformin hold.
+
+Source keys (see ``knowledge/data/sources.yaml``):
+- ``acr-manual``: premedication regimens (elective: prednisone 50 mg orally 13, 7 and 1 h before, or
+  methylprednisolone 32 mg orally 12 and 2 h before, each with optional diphenhydramine 50 mg 1 h before;
+  accelerated: methylprednisolone 40 mg or hydrocortisone 200 mg IV now and every 4 h until contrast,
+  with diphenhydramine 50 mg IV 1 h before). The regimens themselves live in the policy (``regimens``).
+- ``acr-manual`` / ``esur-pc-aki-2018``: metformin withheld from the time of contrast; kidney function
+  re-checked 48 h after before it is restarted.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from dataclasses import dataclass, field
+from typing import Any
+
+from ..errors import RangeError
+
+#: Hours after contrast before kidney function is re-checked and metformin restarted (ACR Manual, ESUR v10).
+METFORMIN_RECHECK_HOURS = 48.0
+
+
+@dataclass
+class Dose:
+    at: dt.datetime | None
+    hours_before: float
+    drug: str
+    dose: str
+    route: str
+    optional: bool = False
+
+
+@dataclass
+class Schedule:
+    regimen: Any  # the policy's Regimen
+    lead_hours: float | None
+    doses: list[Dose] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
+
+
+def _align(a: dt.datetime, b: dt.datetime) -> tuple[dt.datetime, dt.datetime]:
+    if (a.tzinfo is None) != (b.tzinfo is None):
+        if a.tzinfo is None:
+            a = a.replace(tzinfo=b.tzinfo)
+        else:
+            b = b.replace(tzinfo=a.tzinfo)
+    return a, b
+
+
+def hours_between(start: dt.datetime, end: dt.datetime) -> float:
+    """Hours from ``start`` to ``end`` (negative if ``end`` is earlier)."""
+    s, e = _align(start, end)
+    return (e - s).total_seconds() / 3600.0
+
+
+def lay_out(regimen: Any, exam_at: dt.datetime | None, now: dt.datetime | None) -> list[Dose]:
+    """The doses of ``regimen`` as clock times before ``exam_at``.
+
+    A step with ``hours_before`` is given at exam − hours (``at`` is None when there is no exam time). A
+    step with ``hours_before: null`` means "now" and repeats every ``repeat_every_hours`` while the next
+    dose still falls before the exam (ACR Manual accelerated regimen). Doses are sorted by time.
+    """
+    out: list[Dose] = []
+    lead = hours_between(now, exam_at) if (exam_at is not None and now is not None) else None
+    for step in regimen.steps:
+        if step.hours_before is not None:
+            at = exam_at - dt.timedelta(hours=step.hours_before) if exam_at is not None else None
+            out.append(Dose(at, float(step.hours_before), step.drug, step.dose, step.route, step.optional))
+            continue
+        if lead is None:
+            out.append(Dose(None, float("nan"), step.drug, step.dose, step.route, step.optional))
+            continue
+        t = 0.0
+        while True:
+            at, _ = _align(now + dt.timedelta(hours=t), exam_at)
+            out.append(Dose(at, round(lead - t, 4), step.drug, step.dose, step.route, step.optional))
+            if not step.repeat_every_hours:
+                break
+            t += step.repeat_every_hours
+            if t >= lead:
+                break
+    out.sort(key=lambda d: -d.hours_before if d.hours_before == d.hours_before else float("-inf"))
+    return out
+
+
+def premedication_schedule(elective: Any, accelerated: Any, exam_at: dt.datetime | None,
+                           now: dt.datetime | None) -> Schedule:
+    """Choose and lay out a premedication regimen (policy ``regimens``; source ``acr-manual``).
+
+    The elective regimen when at least its ``minimum_lead_hours`` are left before the exam; otherwise the
+    accelerated one, with a warning (and a second warning when even that one's minimum is not left — then
+    the doses that still fit are shown and the exam may need to move). With no exam time, the elective
+    regimen is shown as hours before the exam; with an exam time already past, the elective regimen is
+    laid out against it with a warning (never an error, so old cases can be re-opened).
+    """
+    if exam_at is None:
+        return Schedule(elective, None, lay_out(elective, None, None),
+                        ["No scheduled exam time: doses are given as hours before the exam"])
+    if now is None:
+        raise RangeError("as_of: None is not allowed; allowed: the current date-time", field="as_of")
+    lead = hours_between(now, exam_at)
+    if lead < 0:
+        return Schedule(elective, lead, lay_out(elective, exam_at, None),
+                        [f"The scheduled time {exam_at.isoformat()} is before as_of {now.isoformat()}: "
+                         "the doses are shown as they would have been given; check the exam time"])
+    warnings: list[str] = []
+    regimen = elective
+    if lead < elective.minimum_lead_hours:
+        regimen = accelerated
+        warnings.append(
+            f"Only {lead:.1f} h left before the exam: not enough for the {elective.name.lower()} "
+            f"(needs {elective.minimum_lead_hours:g} h); the accelerated regimen is offered instead")
+        if lead < accelerated.minimum_lead_hours:
+            later = exam_at + dt.timedelta(hours=accelerated.minimum_lead_hours - lead)
+            warnings.append(
+                f"Even the accelerated regimen needs at least {accelerated.minimum_lead_hours:g} h (ACR Manual: "
+                f"4-5 h): consider moving the exam to {later.strftime('%Y-%m-%d %H:%M')} or later, or an "
+                "alternative that needs no iodinated contrast")
+    doses = lay_out(regimen, exam_at, now)
+    for d in doses:
+        if d.at is not None and hours_between(now, d.at) < 0:
+            d.at = now
+            warnings.append(f"{d.drug} {d.dose} ({d.route}) was due {d.hours_before:g} h before: give it now")
+    return Schedule(regimen, lead, doses, warnings)
+
+
+def metformin_timeline(contrast_at: dt.datetime | None,
+                       recheck_after_hours: float = METFORMIN_RECHECK_HOURS) -> tuple[dt.datetime | None,
+                                                                                      dt.datetime | None]:
+    """When to stop metformin and when kidney function is re-checked before restarting it.
+
+    Sources ``acr-manual`` and ``esur-pc-aki-2018``: stop at (or before) the time of contrast; withhold
+    48 h; restart only after kidney function is re-evaluated. Returns (hold_from, recheck_at); both None
+    without an exam time.
+    """
+    if not (0 < recheck_after_hours <= 168):
+        from ..errors import out_of_range
+
+        raise out_of_range("recheck_after_hours", recheck_after_hours, 0, 168, "h")
+    if contrast_at is None:
+        return None, None
+    return contrast_at, contrast_at + dt.timedelta(hours=recheck_after_hours)

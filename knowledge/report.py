@@ -1,0 +1,312 @@
+"""The protocol note, the timeline of timed actions and the knowledge tables as rows: pure functions.
+
+``protocol_note_markdown`` / ``protocol_note_html`` summarise a decision for pasting into a request or a
+report: exam, chosen agent and route, dose, precautions, actions with times, sources and knowledge
+version. The case carries no patient identifiers, so neither does the note.
+
+Blocks that the decision may gain later (``premedication.schedule``, ``metformin.hold_from`` /
+``hold_until``, ``dose``) are read with ``getattr`` and used when present.
+"""
+
+from __future__ import annotations
+
+import base64
+import datetime as dt
+import html
+from dataclasses import dataclass
+from typing import Any
+
+from . import models as m
+from .engine import DECISION_SUPPORT
+from .loader import Knowledge
+
+#: ACR Manual on Contrast Media, metformin: withhold for 48 h after contrast when indicated (the
+#: engine's advice text says the same).
+METFORMIN_HOLD_HOURS = 48.0
+
+VERDICT_WORDS = {v: v.value.replace("_", " ") for v in m.Verdict}
+ROUTE_WORDS = {r: r.value.replace("_", "-") for r in m.Route}
+
+
+def verdict_words(verdict: m.Verdict | str) -> str:
+    return m.Verdict(verdict).value.replace("_", " ")
+
+
+def agent_kind(agent: m.Agent) -> str:
+    """'positive · iodinated · low-osmolar non-ionic' as shown on an option."""
+    parts = [agent.agent_class.value, agent.family.value]
+    if agent.osmolality_class is not None:
+        osm = f"{agent.osmolality_class.value}-osmolar"
+        if agent.ionicity is not None:
+            osm += " " + agent.ionicity.value.replace("_", "-")
+        parts.append(osm)
+    return " · ".join(parts)
+
+
+def _hours(h: float) -> str:
+    return f"{h:g} h"
+
+
+def _clock(at: dt.datetime | None, hours_from_contrast: float) -> str:
+    if at is None:
+        return ""
+    t = at + dt.timedelta(hours=hours_from_contrast)
+    return t.strftime(" (%a %d %b %H:%M)")
+
+
+# --------------------------------------------------------------------------------------------------
+# timeline
+# --------------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class TimelineItem:
+    """One block (start < end) or moment (start == end), in hours from the contrast (0)."""
+
+    kind: str  # "contrast", "premedication", "metformin", "hydration"
+    label: str
+    start_h: float
+    end_h: float
+    detail: str = ""
+
+
+def _rel_hours(when: Any, scheduled: dt.datetime | None) -> float | None:
+    if isinstance(when, (int, float)):
+        return float(when)
+    if isinstance(when, dt.datetime) and scheduled is not None:
+        return (when - scheduled).total_seconds() / 3600.0
+    return None
+
+
+def timeline(decision: m.Decision, knowledge: Knowledge, scheduled_at: dt.datetime | None = None) -> list[TimelineItem]:
+    """The timed actions of a decision, in hours from the contrast dose (negative = before)."""
+    items = [TimelineItem("contrast", "contrast", 0.0, 0.0, "contrast given")]
+    pre = decision.premedication
+    schedule = getattr(pre, "schedule", None)
+    if schedule:
+        for step in schedule:
+            h = getattr(step, "hours_before", None)
+            rel = -float(h) if isinstance(h, (int, float)) else _rel_hours(getattr(step, "at", None), scheduled_at)
+            if rel is None:
+                continue
+            label = " ".join(str(x) for x in (getattr(step, "drug", ""), getattr(step, "dose", "")) if x)
+            items.append(TimelineItem("premedication", label or "premedication", rel, rel,
+                                      str(getattr(step, "route", "") or "")))
+    elif pre.indicated and pre.regimen in knowledge.regimens:
+        reg = knowledge.regimens[pre.regimen]
+        for step in reg.steps:
+            label = f"{step.drug} {step.dose} {step.route}" + (" (optional)" if step.optional else "")
+            if step.hours_before is not None:
+                items.append(TimelineItem("premedication", label, -step.hours_before, -step.hours_before, reg.name))
+            elif step.repeat_every_hours:
+                h = reg.minimum_lead_hours
+                while h > 0:
+                    items.append(TimelineItem("premedication", label, -h, -h, reg.name))
+                    h -= step.repeat_every_hours
+    met = decision.metformin
+    if met.hold:
+        start = _rel_hours(getattr(met, "hold_from", None), scheduled_at)
+        start = 0.0 if start is None else start
+        until = _rel_hours(getattr(met, "hold_until", None), scheduled_at)
+        recheck = getattr(met, "recheck_after_hours", None)
+        if until is not None:
+            end = until
+        elif isinstance(recheck, (int, float)):
+            end = start + float(recheck)
+        else:
+            end = start + METFORMIN_HOLD_HOURS
+        items.append(TimelineItem("metformin", "metformin withheld", start, end, met.advice or ""))
+    if decision.renal.hydration_indicated:
+        plan = getattr(decision.renal, "hydration_plan", None)
+        start = _rel_hours(getattr(plan, "start_at", None), scheduled_at) if plan else None
+        stop = _rel_hours(getattr(plan, "stop_at", None), scheduled_at) if plan else None
+        if plan is not None:
+            detail = (f"{plan.fluid} {plan.rate_ml_h:g} mL/h ({plan.rate_ml_kg_h:g} mL/kg/h): "
+                      f"{plan.volume_before_ml:g} mL before, {plan.volume_after_ml:g} mL after, {plan.total_ml:g} mL in all")
+        else:
+            detail = decision.renal.hydration_regimen or ""
+        if start is not None and stop is not None and stop > start:
+            items.append(TimelineItem("hydration", "IV hydration", start, stop, detail))
+        else:
+            items.append(TimelineItem("hydration", "IV hydration around the contrast", 0.0, 0.0, detail))
+    items.sort(key=lambda i: (i.start_h, i.kind))
+    return items
+
+
+# --------------------------------------------------------------------------------------------------
+# protocol note
+# --------------------------------------------------------------------------------------------------
+def _dose_lines(decision: m.Decision, role_index: int, exam: m.Exam) -> list[str]:
+    dose = getattr(decision.roles[role_index], "dose", None)
+    if dose is not None:
+        fields = (("volume_ml", "{:g} mL"), ("concentration_mg_i_ml", "{:g} mg I/mL"), ("iodine_g", "{:g} g I"),
+                  ("flow_ml_s", "{:g} mL/s"), ("iodine_delivery_rate_g_s", "{:g} g I/s"), ("duration_s", "{:g} s"))
+        parts = [fmt.format(round(getattr(dose, f), 2)) for f, fmt in fields
+                 if isinstance(getattr(dose, f, None), (int, float))]
+        basis = getattr(dose, "volume_basis", None)
+        lines = ["Dose: " + ", ".join(parts) + (f" ({basis})" if basis else "")] if parts else []
+        if getattr(dose, "access_message", None):
+            lines.append(f"IV access: {dose.access_message}")
+        lines += [f"Dose caution: {x}" for x in getattr(dose, "warnings", []) or []]
+        if lines:
+            return lines
+    role = exam.roles[role_index]
+    p = role.protocol
+    if p is None:
+        return []
+    parts = []
+    if p.iodine_g_per_kg:
+        parts.append(f"{p.iodine_g_per_kg:g} g I/kg")
+    if p.fixed_volume_ml:
+        parts.append(f"{p.fixed_volume_ml:g} mL fixed")
+    parts.append(f"at most {p.max_volume_ml:g} mL")
+    parts.append(f"{p.flow_ml_s:g} mL/s")
+    if p.concentration_mg_i_ml:
+        parts.append(f"{p.concentration_mg_i_ml:g} mg I/mL")
+    return ["Exam protocol: " + ", ".join(parts) + f" ({p.certainty.value.replace('_', ' ')})"]
+
+
+def note_sections(decision: m.Decision, knowledge: Knowledge,
+                  scheduled_at: dt.datetime | None = None) -> tuple[str, list[tuple[str, list[str]]]]:
+    """The note as a title and (heading, lines) sections; both renderings are built from this."""
+    exam = knowledge.exams[decision.exam]
+    title = f"Contrast protocol note: {decision.exam_name}"
+    sections: list[tuple[str, list[str]]] = []
+    head = [f"Exam: {decision.exam_name} ({exam.modality.value}); contrast {decision.contrast.value}"]
+    if scheduled_at is not None:
+        head.append(f"Scheduled: {scheduled_at.strftime('%a %d %b %Y %H:%M')}")
+    r = decision.renal
+    if r.egfr is not None:
+        head.append(f"Kidney: eGFR {r.egfr:g} mL/min/1.73 m², KDIGO {r.category} ({r.note})")
+    else:
+        head.append(f"Kidney: {r.note}")
+    sections.append(("Exam", head))
+    sources: list[str] = []
+    for i, role in enumerate(decision.roles):
+        chosen = next((o for o in role.options if o.chosen), None)
+        lines: list[str] = []
+        if chosen is None:
+            continue
+        agent = knowledge.agents[chosen.agent]
+        lines.append(f"Agent: {chosen.name} ({agent_kind(agent)}): {verdict_words(chosen.verdict)}")
+        lines += _dose_lines(decision, i, exam)
+        for reason in chosen.reasons:
+            lines.append(f"Why: {reason.text} [{reason.source}]")
+            if reason.source not in sources:
+                sources.append(reason.source)
+        for act in chosen.actions:
+            lines.append(f"Do: {act}")
+        usable = [o.name for o in role.options if not o.chosen and o.verdict.severity <= 1]
+        if usable:
+            lines.append("Also usable: " + ", ".join(usable))
+        ruled = [f"{o.name} ({verdict_words(o.verdict)})" for o in role.options if o.verdict.severity >= 2]
+        if len(ruled) > 4:
+            lines.append(f"Ruled out: {len(ruled)} agents (" + ", ".join(ruled[:3]) + ", ...)")
+        elif ruled:
+            lines.append("Ruled out: " + ", ".join(ruled))
+        req = "" if role.required else " (optional)"
+        sections.append((f"{ROUTE_WORDS[role.route].capitalize()}{req}: {role.purpose}", lines))
+    timed: list[str] = []
+    for item in timeline(decision, knowledge, scheduled_at):
+        if item.kind == "contrast":
+            continue
+        if item.kind == "metformin":
+            timed.append(f"Metformin: withhold from {_hours(item.start_h)} to {_hours(item.end_h)} after contrast"
+                         f"{_clock(scheduled_at, item.start_h)}; {item.detail}")
+        elif item.kind == "hydration":
+            timed.append(f"Hydration: {item.detail}")
+        else:
+            timed.append(f"{_hours(-item.start_h)} before contrast{_clock(scheduled_at, item.start_h)}: {item.label}")
+    if decision.metformin.takes_metformin and not decision.metformin.hold and decision.metformin.advice:
+        timed.append(f"Metformin: {decision.metformin.advice}")
+    if decision.premedication.indicated and decision.premedication.regimen in knowledge.regimens:
+        reg = knowledge.regimens[decision.premedication.regimen]
+        timed.insert(0, f"Premedication: {reg.name} (needs at least {_hours(reg.minimum_lead_hours)}; "
+                        f"{knowledge.cite([reg.source], m.Certainty.verified)})")
+    if timed:
+        sections.append(("Precautions and timed actions", timed))
+    sections.append(("Cautions", list(decision.cautions)))
+    pol = knowledge.policy
+    for ref in pol.based_on:
+        text = knowledge.cite([ref], m.Certainty.verified)
+        if text not in sources:
+            sources.append(text)
+    sections.append(("Sources", sources))
+    sections.append(("Knowledge", [
+        f"Knowledge version {decision.knowledge_version}; policy {pol.name} ({decision.policy}, "
+        f"{knowledge.policy_version})",
+        "No patient identifiers are recorded in this note.",
+    ]))
+    return title, sections
+
+
+def protocol_note_markdown(decision: m.Decision, knowledge: Knowledge,
+                           scheduled_at: dt.datetime | None = None) -> str:
+    title, sections = note_sections(decision, knowledge, scheduled_at)
+    out = [f"# {title}", "", f"_{DECISION_SUPPORT}_", ""]
+    for heading, lines in sections:
+        out.append(f"## {heading}")
+        out += [f"- {line}" for line in lines]
+        out.append("")
+    return "\n".join(out)
+
+
+def protocol_note_html(decision: m.Decision, knowledge: Knowledge,
+                       scheduled_at: dt.datetime | None = None) -> str:
+    title, sections = note_sections(decision, knowledge, scheduled_at)
+    e = html.escape
+    body = [f"<h1>{e(title)}</h1>", f"<p><em>{e(DECISION_SUPPORT)}</em></p>"]
+    for heading, lines in sections:
+        body.append(f"<h2>{e(heading)}</h2><ul>" + "".join(f"<li>{e(x)}</li>" for x in lines) + "</ul>")
+    return ("<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\"><title>"
+            f"{e(title)}</title></head><body>" + "".join(body) + "</body></html>")
+
+
+def volumes_by_strength(iodine_g: float, agent: m.Agent) -> list[tuple[float, float]]:
+    """(strength mg I/mL, volume mL) that deliver ``iodine_g`` grams of iodine: volume = g · 1000 / strength."""
+    return [(c.value, iodine_g * 1000.0 / c.value) for c in agent.concentrations if c.unit is m.Unit.mg_i_per_ml]
+
+
+def data_uri(text: str, mime: str) -> str:
+    """A ``data:`` URI (base64, UTF-8) for a download link."""
+    return f"data:{mime};charset=utf-8;base64," + base64.b64encode(text.encode("utf-8")).decode("ascii")
+
+
+# --------------------------------------------------------------------------------------------------
+# knowledge browser rows
+# --------------------------------------------------------------------------------------------------
+def knowledge_tables(knowledge: Knowledge) -> dict[str, list[dict[str, Any]]]:
+    """The tables as rows of plain values, for a filterable view."""
+    k = knowledge
+    exams = [{
+        "id": e.id, "name": e.name, "modality": e.modality.value, "region": e.region, "purpose": e.purpose,
+        "contrast": e.contrast.value,
+        "roles": "; ".join(f"{r.route.value}: {', '.join(r.agents)}" for r in e.roles),
+    } for e in k.tables.exams]
+    agents = [{
+        "id": a.id, "name": a.name, "kind": agent_kind(a), "form": a.form.value,
+        "strengths": ", ".join(f"{c.value:g} {c.unit.value.replace('_', ' ')}" for c in a.concentrations),
+        "routes": ", ".join(r.value for r in a.routes), "notes": a.notes,
+        "certainty": a.certainty.value.replace("_", " "),
+    } for a in k.tables.agents]
+    rules = [{
+        "id": r.id, "scope": r.scope.value,
+        "verdict": verdict_words(r.effect.verdict) if r.effect.verdict else "",
+        "text": r.text, "actions": " | ".join(r.effect.actions),
+        "flags": ", ".join(f.value for f in r.effect.flags),
+        "source": k.cite(r.sources, r.certainty),
+    } for r in k.tables.rules]
+    sources = [{
+        "id": s.id, "title": s.title, "issuer": s.issuer, "year": s.year or "", "kind": s.kind,
+        "details": s.details, "certainty": s.certainty.value.replace("_", " "),
+    } for s in k.tables.sources]
+    pol = k.policy
+    policy = []
+    for name, field in m.Policy.model_fields.items():
+        if name in ("regimens", "based_on"):
+            continue
+        policy.append({"setting": name, "value": getattr(pol, name), "meaning": field.description or ""})
+    for reg in pol.regimens:
+        steps = "; ".join(
+            (f"{s.hours_before:g} h before" if s.hours_before is not None else f"now, every {s.repeat_every_hours:g} h")
+            + f": {s.drug} {s.dose} {s.route}" + (" (optional)" if s.optional else "") for s in reg.steps)
+        policy.append({"setting": f"regimen {reg.id}", "value": reg.name, "meaning": steps})
+    return {"exams": exams, "agents": agents, "rules": rules, "sources": sources, "policy": policy}

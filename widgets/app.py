@@ -1,0 +1,228 @@
+"""The dashboard: ``ContrastAidApp`` ties the case form to the decision, the plots and the note.
+
+Each app builds its own :class:`knowledge.loader.Knowledge` (no module-level cache), holds its state on
+itself, and recomputes on every input change: validate (``knowledge.inputs.case_problems``), decide,
+then update widget values in place.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import html
+import os
+from typing import Any
+
+import ipywidgets as w
+import traitlets
+
+from knowledge import models as m
+from knowledge.engine import DECISION_SUPPORT, parse_case
+from knowledge.errors import ContrastAidError
+from knowledge.inputs import case_problems
+from knowledge.links import case_from_query, query_from_case
+from knowledge.loader import Knowledge, load_knowledge
+from knowledge.report import protocol_note_html, protocol_note_markdown, timeline
+from knowledge.whatif import WhatIf, egfr_sweep
+
+from . import plots
+from .decision import DecisionPanel
+from .inputs import ExamPicker, PatientPanel
+from .panels import KnowledgeBrowser, ProtocolNote
+from .style import CSS
+
+CAUTION = ("Decision support only: local policy and the supervising radiologist decide; licensed practice "
+           "applies. Check every suggestion against the patient and the local product information.")
+
+
+def _field_key(field: str) -> str:
+    """'patient.creatinine.value' -> 'creatinine'; 'patient.prior_reactions[0].agent' -> 'prior_reactions'."""
+    if not field.startswith("patient."):
+        return field.split(".")[0].split("[")[0]
+    return field[len("patient."):].split(".")[0].split("[")[0]
+
+
+class ContrastAidApp(w.VBox):
+    """The whole dashboard. ``decision`` is the last valid decision (None while inputs are invalid)."""
+
+    decision = traitlets.Instance(m.Decision, allow_none=True)
+    errors = traitlets.List(traitlets.Unicode())
+    stale = traitlets.Bool(False)
+    query = traitlets.Unicode("")
+
+    def __init__(self, policy_path: str | None = None, query: str = "", **kwargs: Any):
+        super().__init__(**kwargs)
+        self.add_class("ca-app")
+        self.knowledge: Knowledge = load_knowledge(policy=policy_path)
+        self.case: m.Case | None = None
+        self.whatif: WhatIf | None = None
+        self.link_notes: list[str] = []
+        self._plot_keys: dict[str, Any] = {}
+        self._whatif_key: Any = None
+        self._whatif_fig: dict | None = None
+
+        k = self.knowledge
+        self.caution = w.HTML(f"<div>{html.escape(CAUTION)}</div>")
+        self.caution.add_class("ca-caution")
+        title = w.HTML(
+            "<h2 style='margin:4px 0'>contrast-aid · choosing a contrast agent</h2>"
+            f"<div class='ca-hint'>Knowledge {k.version} · policy {html.escape(k.policy.name)} · "
+            "no patient identifiers are asked for or kept</div>")
+        self.exam = ExamPicker(k)
+        self.patient = PatientPanel(k)
+        self.panel = DecisionPanel(k)
+        self.egfr_out = plots.plot_output(150)
+        self.whatif_out = plots.plot_output(140)
+        self.timeline_out = plots.plot_output(120)
+        self.dose_out = plots.plot_output(60)
+        self.egfr_fig = plots.egfr_figure(k)
+        self.plots_box = w.VBox([
+            w.HTML('<div class="ca-group-head">Where this eGFR sits (KDIGO bands, policy thresholds)</div>'),
+            self.egfr_out,
+            w.HTML('<div class="ca-group-head">What if kidney function were different?</div>'), self.whatif_out,
+            w.HTML('<div class="ca-group-head">Timed actions</div>'), self.timeline_out,
+            w.HTML('<div class="ca-group-head">Dose plan</div>'), self.dose_out])
+        self.note = ProtocolNote()
+        self.browser = KnowledgeBrowser(k)
+        browser_box = w.Accordion(children=[self.browser], selected_index=None)
+        browser_box.set_title(0, "Knowledge tables and policy in force")
+
+        left = w.VBox([self.exam, self.patient], layout=w.Layout(width="460px", padding="0 12px 0 0"))
+        right = w.VBox([self.panel, self.plots_box, self.note], layout=w.Layout(width="680px"))
+        self.children = [w.HTML(CSS), title, self.caution,
+                         w.HBox([left, right], layout=w.Layout(flex_flow="row wrap", align_items="flex-start")),
+                         browser_box]
+
+        if query:
+            self.prefill(query)
+        self.exam.observe(self._on_input, "revision")
+        self.patient.observe(self._on_input, "revision")
+        self.recompute()
+
+    @classmethod
+    def from_environment(cls) -> "ContrastAidApp":
+        """Build the app from Voila's per-page QUERY_STRING and the CONTRAST_AID_POLICY setting."""
+        return cls(policy_path=os.environ.get("CONTRAST_AID_POLICY") or None,
+                   query=os.environ.get("QUERY_STRING", ""))
+
+    # ---- input
+    def prefill(self, query: str) -> None:
+        """Fill the form from a URL query string (see knowledge.links.case_from_query)."""
+        data = case_from_query(query)
+        notes: list[str] = []
+        if "exam" in data:
+            msg = self.exam.set_exam(data["exam"])
+            if msg:
+                notes.append(msg)
+        if data.get("agent"):
+            if data["agent"] in [v for _, v in self.exam.agent.options]:
+                self.exam.agent.value = data["agent"]
+            else:
+                notes.append(f"agent: {data['agent']!r} from the link is not an agent of this exam")
+        notes += self.patient.set_patient(data.get("patient", {}))
+        self.link_notes = notes
+
+    def case_data(self) -> dict[str, Any]:
+        data = self.exam.case_part()
+        data["patient"] = self.patient.patient_data()
+        return data
+
+    def _on_input(self, change: dict) -> None:
+        self.link_notes = []
+        self.recompute()
+
+    # ---- compute and show
+    def recompute(self) -> m.Decision | None:
+        data = self.case_data()
+        problems = case_problems(data)
+        case = decision = None
+        if not problems:
+            try:
+                case = parse_case(data)
+                decision = self.knowledge.decide(case)
+                self._update_whatif(case)
+            except ContrastAidError as exc:
+                problems = [(exc.field or exc.message.split(":")[0], exc.message)]
+        by_field: dict[str, list[str]] = {}
+        for field, message in problems:
+            by_field.setdefault(_field_key(field), []).append(message)
+        for note in self.link_notes:
+            by_field.setdefault(_field_key(note.split(":")[0]), []).append(note)
+        self.exam.show_problems(by_field)
+        self.patient.show_problems(by_field)
+        self.errors = [msg for _, msg in problems] + list(self.link_notes)
+        if decision is None:
+            self.decision = None
+            self.stale = True
+            self.panel.set_stale(True, [msg for _, msg in problems])
+            self.plots_box.add_class("ca-stale")
+            self.note.clear("the inputs have problems (see the marked fields)")
+            self.patient.set_egfr_readout("<span class='ca-hint'>eGFR: waiting for valid inputs</span>")
+            return None
+        self.case = case
+        self.decision = decision
+        self.stale = False
+        self.query = query_from_case(case)
+        self.panel.set_stale(False)
+        self.plots_box.remove_class("ca-stale")
+        self.panel.show(decision)
+        self._show_egfr(decision)
+        self._show_plots(decision, case)
+        self.note.show(protocol_note_markdown(decision, self.knowledge, case.scheduled_at),
+                       protocol_note_html(decision, self.knowledge, case.scheduled_at), self.query)
+        return decision
+
+    def _update_whatif(self, case: m.Case) -> None:
+        # the sweep replaces kidney function, so it only depends on the rest of the case
+        key = case.model_dump_json(exclude={"patient": {"creatinine", "cystatin_c_mg_l", "egfr"}})
+        if key != self._whatif_key:
+            self.whatif = egfr_sweep(case, self.knowledge)
+            self._whatif_key = key
+            self._whatif_fig = None
+
+    def _show_egfr(self, d: m.Decision) -> None:
+        r = d.renal
+        if r.egfr is None:
+            text = f"eGFR: not known. {html.escape(r.note or '')}"
+        else:
+            text = (f"eGFR <b>{r.egfr:g}</b> mL/min/1.73 m² · KDIGO <b>{r.category}</b> · "
+                    f"{html.escape(r.note or '')}")
+        self.patient.set_egfr_readout(text)
+
+    def _redraw(self, name: str, out: w.Output, key: Any, make) -> None:
+        if self._plot_keys.get(name) == key:
+            return
+        fig, text = make()
+        plots.show_figure(out, fig, text)
+        self._plot_keys[name] = key
+
+    def _show_plots(self, d: m.Decision, case: m.Case) -> None:
+        k = self.knowledge
+        r = d.renal
+
+        def egfr():
+            return self.egfr_fig, plots.set_egfr(self.egfr_fig, r.egfr, r.category)
+
+        self._redraw("egfr", self.egfr_out, (r.egfr, r.category), egfr)
+        wi = self.whatif
+
+        def whatif():
+            if self._whatif_fig is None:
+                self._whatif_fig, self._whatif_text = plots.whatif_figure(wi, r.egfr)
+            elif wi.segments:
+                plots.set_whatif_egfr(self._whatif_fig, wi, r.egfr)
+            return self._whatif_fig, self._whatif_text
+
+        self._redraw("whatif", self.whatif_out, (self._whatif_key, r.egfr), whatif)
+        items = timeline(d, k, case.scheduled_at)
+        self._redraw("timeline", self.timeline_out, (tuple(items), case.scheduled_at),
+                     lambda: plots.timeline_figure(items, case.scheduled_at))
+        doses = tuple(repr(getattr(role, "dose", None)) for role in d.roles)
+        self._redraw("dose", self.dose_out, (d.exam, doses), lambda: plots.dose_figure(d, k))
+
+    # ---- for tests and notebooks
+    def option_cards(self) -> list[w.HTML]:
+        """The agent cards (class ca-option) now showing."""
+        return self.panel.cards()
+
+
+__all__ = ["ContrastAidApp", "CAUTION", "DECISION_SUPPORT"]

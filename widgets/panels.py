@@ -1,0 +1,85 @@
+"""The protocol note (copy and download) and the knowledge browser."""
+
+from __future__ import annotations
+
+import html
+from typing import Any
+
+import ipywidgets as w
+import pandas as pd
+
+from knowledge.loader import Knowledge
+from knowledge.report import data_uri, knowledge_tables
+
+
+class ProtocolNote(w.VBox):
+    """A Markdown note to copy, download links (Markdown, HTML) and a link that reopens the case."""
+
+    def __init__(self, **kwargs: Any):
+        super().__init__(**kwargs)
+        self.add_class("ca-note")
+        self.text = w.Textarea(value="", layout=w.Layout(width="650px", height="260px"))
+        self.links = w.HTML("")
+        self.links.add_class("ca-downloads")
+        self.children = [w.HTML('<div class="ca-group-head">Protocol note (select all and copy, or download)</div>'),
+                         self.text, self.links]
+        self.markdown = ""
+        self.html = ""
+
+    def show(self, markdown: str, html_doc: str, query: str) -> None:
+        self.markdown, self.html = markdown, html_doc
+        self.text.value = markdown
+        self.links.value = (
+            f'<a class="ca-download-md" download="protocol-note.md" href="{data_uri(markdown, "text/markdown")}">'
+            "download Markdown</a> · "
+            f'<a class="ca-download-html" download="protocol-note.html" href="{data_uri(html_doc, "text/html")}">'
+            "download HTML</a> · "
+            f'<a class="ca-case-link" href="?{html.escape(query)}">link to this case (no identifiers)</a>')
+
+    def clear(self, reason: str) -> None:
+        self.markdown = self.html = ""
+        self.text.value = f"No note: {reason}"
+        self.links.value = ""
+
+
+class KnowledgeBrowser(w.VBox):
+    """The knowledge tables as a filterable view, with the knowledge version and the policy in force."""
+
+    def __init__(self, knowledge: Knowledge, **kwargs: Any):
+        super().__init__(**kwargs)
+        self.add_class("ca-browser")
+        self._frames = {name: pd.DataFrame(rows) for name, rows in knowledge_tables(knowledge).items()}
+        pol = knowledge.policy
+        self.header = w.HTML(
+            f"<div>Knowledge version <b>{knowledge.version}</b> · policy in force <b>{html.escape(pol.name)}</b> "
+            f"({pol.id}, {knowledge.policy_version}) · "
+            + ", ".join(f"{n} {c}" for n, c in knowledge.counts().items()) + "</div>")
+        self.table = w.Dropdown(options=list(self._frames), value="exams", description="Table",
+                                style={"description_width": "initial"}, layout=w.Layout(width="200px"))
+        self.filter = w.Text(placeholder="filter rows (all words must appear)", layout=w.Layout(width="320px"))
+        self.count = w.HTML("")
+        self.view = w.HTML("", layout=w.Layout(max_height="420px", overflow="auto", width="100%"))
+        self.children = [self.header, w.HBox([self.table, self.filter, self.count]), self.view]
+        self.table.observe(self._on_change, "value")
+        self.filter.observe(self._on_change, "value")
+        self._render()
+
+    def rows(self) -> pd.DataFrame:
+        df = self._frames[self.table.value]
+        words = self.filter.value.lower().split()
+        if not words or df.empty:
+            return df
+        hay = df.astype(str).agg(" ".join, axis=1).str.lower()
+        mask = pd.Series(True, index=df.index)
+        for word in words:
+            mask &= hay.str.contains(word, regex=False)
+        return df[mask]
+
+    def _on_change(self, change: dict) -> None:
+        self._render()
+
+    def _render(self) -> None:
+        df = self.rows()
+        total = len(self._frames[self.table.value])
+        self.count.value = f"<span class='ca-hint'>{len(df)} of {total} rows</span>"
+        self.view.value = df.to_html(index=False, escape=True, classes="ca-table", border=0)

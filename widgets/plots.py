@@ -1,0 +1,228 @@
+"""Plotly figures shown in ``widgets.Output``: eGFR on the KDIGO bands, the eGFR what-if strip, the timeline
+of timed actions and the dose plan.
+
+Figures are shown through the plain ``application/vnd.plotly.v1+json`` mimetype (what the default
+``plotly_mimetype`` renderer emits; plotly.js is served by the local extension, nothing from a CDN), with a
+text/plain description as fallback. An Output is only redrawn when what it shows has changed.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from typing import Any
+
+import ipywidgets as w
+import plotly.graph_objects as go
+import plotly.io as pio
+
+from knowledge import models as m
+from knowledge.calculators.kidney import KDIGO_CATEGORIES
+from knowledge.loader import Knowledge
+from knowledge.report import TimelineItem, verdict_words, volumes_by_strength
+from knowledge.whatif import WhatIf
+
+from .style import BAND_COLOUR, BAND_TEXT, TIMELINE_COLOUR, VERDICT_MARK
+
+WIDTH = 640
+EGFR_MAX = 130.0
+_MIME = pio.renderers["plotly_mimetype"]
+
+
+def plot_output(height: int) -> w.Output:
+    return w.Output(layout=w.Layout(width=f"{WIDTH + 10}px", min_height=f"{height}px", overflow="hidden"))
+
+
+def show_figure(out: w.Output, fig: go.Figure | dict | None, text: str) -> None:
+    """Replace what ``out`` shows by ``fig`` (a Figure or a figure dict; or ``text`` alone when None)."""
+    data: dict[str, Any] = {"text/plain": text}
+    if fig is not None:
+        fig_dict = fig.to_dict() if isinstance(fig, go.Figure) else dict(fig)
+        data.update(_MIME.to_mimebundle(fig_dict))
+    else:
+        import html
+
+        data["text/html"] = f"<div class='ca-hint'>{html.escape(text)}</div>"
+    out.outputs = ({"output_type": "display_data", "data": data, "metadata": {}},)
+
+
+def _base_layout(height: int, **kw: Any) -> dict[str, Any]:
+    return dict(width=WIDTH, height=height, margin=dict(l=90, r=20, t=30, b=40), showlegend=False,
+                plot_bgcolor="#ffffff", paper_bgcolor="#ffffff", font=dict(size=12), **kw)
+
+
+# ---- eGFR on the KDIGO bands --------------------------------------------------------------------
+def policy_thresholds(knowledge: Knowledge) -> list[tuple[float, str]]:
+    p = knowledge.policy
+    named = [
+        (p.egfr_hydration_below, "IV hydration below"),
+        (p.egfr_prophylaxis_consider_below, "prophylaxis considered below"),
+        (p.egfr_first_pass_hydration_below, "first-pass hydration below"),
+        (p.metformin_hold_egfr_below, "metformin held below"),
+    ]
+    merged: dict[float, list[str]] = {}
+    for x, label in named:
+        merged.setdefault(float(x), []).append(label)
+    return [(x, "; ".join(labels) + f" {x:g}") for x, labels in sorted(merged.items())]
+
+
+def egfr_figure(knowledge: Knowledge) -> dict:
+    """The bands and the policy lines (a figure dict, built once); the last trace is the patient marker."""
+    fig = go.Figure()
+    bounds = [(name, low) for name, low in KDIGO_CATEGORIES]  # high to low
+    highs = [EGFR_MAX] + [low for _, low in bounds[:-1]]
+    for (name, low), high in zip(bounds, highs):
+        fig.add_trace(go.Bar(x=[high - low], base=[low], y=["KDIGO"], orientation="h", name=name,
+                             marker=dict(color=BAND_COLOUR[name], line=dict(color="#ffffff", width=1)),
+                             text=[name], textposition="inside", insidetextanchor="middle",
+                             textfont=dict(color=BAND_TEXT[name]), hoverinfo="text",
+                             hovertext=[f"{name}: {low:g}–{high:g}" if high < EGFR_MAX else f"{name}: {low:g} and above"]))
+    for i, (x, label) in enumerate(policy_thresholds(knowledge)):
+        fig.add_vline(x=x, line=dict(color="#5b2a86", dash="dash", width=2))
+        fig.add_annotation(x=x, y=1.0 + 0.22 * (i % 2), yref="paper", text=label, showarrow=False,
+                           xanchor="left", font=dict(size=10, color="#5b2a86"))
+    fig.add_trace(go.Scatter(x=[], y=[], mode="markers+text", name="patient", textposition="bottom center",
+                             marker=dict(symbol="diamond", size=16, color="#000000", line=dict(color="#fff", width=2)),
+                             cliponaxis=False))
+    fig.update_layout(**_base_layout(150, barmode="overlay"),
+                      xaxis=dict(range=[0, EGFR_MAX], title="eGFR, mL/min/1.73 m² (KDIGO 2012 G categories)"),
+                      yaxis=dict(showticklabels=False))
+    return fig.to_dict()
+
+
+def set_egfr(fig: dict, egfr: float | None, category: str | None) -> str:
+    """Move the patient marker of the figure dict from ``egfr_figure``; returns the text description."""
+    marker = fig["data"][-1]
+    if egfr is None:
+        marker["x"], marker["y"], marker["text"] = [], [], []
+        return "eGFR unknown"
+    x = min(float(egfr), EGFR_MAX)
+    marker["x"], marker["y"], marker["text"] = [x], ["KDIGO"], [f"{egfr:g} ({category})"]
+    return f"eGFR {egfr:g} mL/min/1.73 m², KDIGO {category}"
+
+
+# ---- what-if strip (plain figure dicts: no graph_objects validation on the hot path) ---------------
+def _vline(x: Any, colour: str, width: int = 2, dash: str = "solid") -> dict[str, Any]:
+    return dict(type="line", xref="x", yref="paper", x0=x, x1=x, y0=0, y1=1,
+                line=dict(color=colour, width=width, dash=dash))
+
+
+def whatif_figure(whatif: WhatIf, egfr: float | None) -> tuple[dict | None, str]:
+    if not whatif.segments:
+        return None, whatif.note
+    agents = {s.agent for s in whatif.segments}
+    data, descr = [], []
+    for s in whatif.segments:
+        glyph, colour, words = VERDICT_MARK[s.verdict]
+        label = f"{glyph} {words}" + ("; hydrate" if s.hydration else "")
+        if len(agents) > 1:
+            label += f" · {s.agent_name}"
+        dark_text = s.verdict is m.Verdict.suitable_with_precautions
+        data.append(dict(type="bar", x=[s.high - s.low], base=[s.low], y=["plan"], orientation="h",
+                         marker=dict(color=colour, line=dict(color="#ffffff", width=2),
+                                     pattern=dict(shape="/" if s.hydration else "", fgcolor="#ffffff")),
+                         text=[label], textposition="inside", insidetextanchor="middle",
+                         textfont=dict(color="#1f2d3d" if dark_text else "#ffffff"), hoverinfo="text",
+                         hovertext=[f"eGFR {s.low:g}–{s.high:g}: {s.agent_name}, {words}"
+                                    + (", hydration indicated" if s.hydration else "")]))
+        descr.append(f"{s.low:g}–{s.high:g}: {s.agent_name} {words}" + (" (hydration)" if s.hydration else ""))
+    route = whatif.route.value.replace("_", "-") if whatif.route else ""
+    fig = dict(data=data, layout=dict(**_base_layout(140, barmode="overlay"),
+               xaxis=dict(range=[whatif.segments[0].low, whatif.segments[-1].high],
+                          title=dict(text=f"if eGFR were … (planned {route} agent, all else as entered)")),
+               yaxis=dict(showticklabels=False), shapes=[], annotations=[]))
+    set_whatif_egfr(fig, whatif, egfr)
+    return fig, "What-if over eGFR: " + "; ".join(descr)
+
+
+def set_whatif_egfr(fig: dict, whatif: WhatIf, egfr: float | None) -> None:
+    """Move the 'this patient' line of a what-if figure dict."""
+    lay = fig["layout"]
+    if egfr is None:
+        lay["shapes"], lay["annotations"] = [], []
+        return
+    x = max(min(float(egfr), whatif.segments[-1].high), whatif.segments[0].low)
+    lay["shapes"] = [_vline(x, "#000000", 3)]
+    lay["annotations"] = [dict(x=x, y=1.12, yref="paper", text=f"this patient {egfr:g}", showarrow=False,
+                               font=dict(size=11))]
+
+
+# ---- timeline -----------------------------------------------------------------------------------
+ROWS = ["metformin", "hydration", "contrast", "premedication"]
+
+
+def timeline_figure(items: list[TimelineItem], scheduled_at: dt.datetime | None) -> tuple[dict | None, str]:
+    timed = [i for i in items if i.kind != "contrast"]
+    if not timed:
+        return None, "No timed actions for this plan (no premedication, no metformin hold, no hydration)."
+
+    def at(h: float):
+        return (scheduled_at + dt.timedelta(hours=h)).isoformat() if scheduled_at else h
+
+    data, lines = [], []
+    for item in items:
+        colour = TIMELINE_COLOUR[item.kind]
+        if item.end_h > item.start_h:
+            width = (item.end_h - item.start_h) * (3600 * 1000 if scheduled_at else 1)  # ms on a date axis
+            data.append(dict(type="bar", x=[width], base=[at(item.start_h)], y=[item.kind], orientation="h",
+                             marker=dict(color=colour, pattern=dict(shape="x", fgcolor="#ffffff")),
+                             text=[item.label], textposition="inside", hoverinfo="text",
+                             hovertext=[f"{item.label}: {item.start_h:+g} h to {item.end_h:+g} h"]))
+        else:
+            symbol = "star" if item.kind == "contrast" else "circle"
+            data.append(dict(type="scatter", x=[at(item.start_h)], y=[item.kind], mode="markers+text",
+                             marker=dict(symbol=symbol, size=13, color=colour),
+                             text=[f"{item.start_h:+g} h" if item.kind == "premedication" else item.label],
+                             textposition="top center", hoverinfo="text",
+                             hovertext=[f"{item.label} at {item.start_h:+g} h"], cliponaxis=False))
+        lines.append(f"{item.start_h:+g} h: {item.label}")
+    lo = min(i.start_h for i in items) - 2
+    hi = max(i.end_h for i in items) + 2
+    if scheduled_at:
+        xaxis = dict(type="date", range=[at(lo), at(hi)], title=dict(text="clock time (exam at the star)"),
+                     tickformat="%a %H:%M")
+    else:
+        xaxis = dict(range=[lo, hi], zeroline=True,
+                     title=dict(text="hours from the contrast (enter an exam time for clock times)"))
+    rows = [r for r in ROWS if any(i.kind == r for i in items)]
+    fig = dict(data=data, layout=dict(**_base_layout(60 + 45 * len(rows), barmode="overlay"), xaxis=xaxis,
+                                      yaxis=dict(categoryorder="array", categoryarray=rows)))
+    return fig, "Timeline: " + "; ".join(lines)
+
+
+# ---- dose plan ----------------------------------------------------------------------------------
+def dose_figure(decision: m.Decision, knowledge: Knowledge) -> tuple[go.Figure | None, str]:
+    """The first intravascular role's dose block (``RoleDecision.dose``) against the agent's strengths."""
+    role = next((r for r in decision.roles if getattr(r, "dose", None) is not None), None)
+    dose = getattr(role, "dose", None)
+    exam = knowledge.exams[decision.exam]
+    prot = next((r.protocol for r in exam.roles if r.protocol), None)
+    iodine = getattr(dose, "iodine_g", None)
+    agent = knowledge.agents.get(getattr(dose, "agent", None) or "")
+    if dose is None or agent is None or not isinstance(iodine, (int, float)):
+        if prot is None:
+            return None, "No intravascular dose protocol for this exam."
+        why = " ".join(getattr(dose, "warnings", []) or []) if dose is not None else ""
+        return None, (f"Dose plan: not worked out ({why or 'enter the weight for a weight-based dose'}). Exam protocol: "
+                      f"{prot.iodine_g_per_kg or '-'} g I/kg, at most {prot.max_volume_ml:g} mL, {prot.flow_ml_s:g} mL/s.")
+    pairs = volumes_by_strength(float(iodine), agent)
+    chosen_c = getattr(dose, "concentration_mg_i_ml", None)
+    cap = prot.max_volume_ml if prot else None
+    fig = go.Figure(go.Bar(
+        x=[f"{c:g} mg I/mL" for c, _ in pairs], y=[v for _, v in pairs],
+        marker=dict(color=["#0072B2" if c == chosen_c else "#98b6d8" for c, _ in pairs],
+                    pattern=dict(shape=["" if c == chosen_c else "." for c, _ in pairs])),
+        text=[f"{v:.0f} mL" + (" (planned)" if c == chosen_c else "") for c, v in pairs],
+        textposition="outside", cliponaxis=False))
+    if cap is not None:
+        fig.add_hline(y=cap, line=dict(color="#5b2a86", dash="dash"), annotation_text=f"exam cap {cap:g} mL")
+    flow = getattr(dose, "flow_ml_s", None)
+    idr = getattr(dose, "iodine_delivery_rate_g_s", None)
+    title = (f"{agent.name}: {iodine:.1f} g I"
+             + (f", {dose.volume_ml:.0f} mL" if isinstance(dose.volume_ml, (int, float)) else "")
+             + (f" at {flow:g} mL/s" if isinstance(flow, (int, float)) else "")
+             + (f" = {idr:.2f} g I/s" if isinstance(idr, (int, float)) else ""))
+    top = max([v for _, v in pairs] + [cap or 0]) * 1.25
+    fig.update_layout(**_base_layout(230), title=dict(text=title, font=dict(size=12)),
+                      yaxis=dict(title="volume for this iodine dose, mL", range=[0, top]),
+                      xaxis=dict(title="strengths of the agent"))
+    return fig, title + ". Volume by strength: " + ", ".join(f"{c:g} mg I/mL → {v:.0f} mL" for c, v in pairs)
