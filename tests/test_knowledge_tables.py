@@ -87,19 +87,17 @@ def test_rule_texts_take_thresholds_from_policy(k):
     assert "{" not in "".join(text.values())
 
 
-def test_policy_threshold_change_moves_the_verdict(tmp_path):
-    # ESUR v10 profile: first-pass arterial exposure at eGFR < 45 is at risk (clinical notes, European guideline)
-    pol = yaml.safe_load((DATA_DIR / "policies" / "default.yaml").read_text())
-    pol.update(id="esur-like", egfr_first_pass_hydration_below=45)
-    path = tmp_path / "esur.yaml"
-    path.write_text(yaml.safe_dump(pol))
+def test_esur_policy_profile_moves_the_first_pass_verdict():
+    # ESUR v10 (clinical notes, European guideline): first-pass arterial exposure at eGFR < 45 is at risk;
+    # the North American default (ACR-NKF 2020) uses eGFR < 30 for every intravascular exposure.
     case = {"exam": "angio-visceral-renal", "patient": {"egfr": 40}}
     assert not load_knowledge().decide(case).renal.hydration_indicated
-    esur = load_knowledge(policy=path)
+    esur = load_knowledge(policy=DATA_DIR / "policies" / "esur-v10.yaml")
     d = esur.decide(case)
-    assert d.renal.hydration_indicated and d.policy == "esur-like"
+    assert d.renal.hydration_indicated and d.policy == "esur-v10-example"
     iohexol = next(o for o in d.roles[0].options if o.agent == "iohexol")
     assert "below 45" in next(r.text for r in iohexol.reasons if r.rule == "renal-hydrate-first-pass")
+    assert "sodium bicarbonate" in d.renal.hydration_regimen
 
 
 # ------------------------------------------------------------------ broken tables: pinned messages

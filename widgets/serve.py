@@ -21,8 +21,10 @@ from __future__ import annotations
 
 import argparse
 import os
+import signal
 import subprocess
 import sys
+import threading
 import time
 import urllib.error
 import urllib.request
@@ -182,6 +184,7 @@ def serve(port: int, policy: str | None, open_browser: bool = False) -> int:
         print(str(exc), file=sys.stderr)
         return 1
     proc = subprocess.Popen(cmd, env=voila_environment(policy))
+    previous = _stop_on_sigterm()
     try:
         if not wait_until_ready(port, proc):
             code = proc.poll()
@@ -200,9 +203,27 @@ def serve(port: int, policy: str | None, open_browser: bool = False) -> int:
             webbrowser.open(url)
         code = proc.wait()
         return 0 if code in (0, -15) else 1
-    except KeyboardInterrupt:
+    except (KeyboardInterrupt, _Stopped):
         stop(proc)
         return 0
+    finally:
+        stop(proc)
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
+
+
+class _Stopped(Exception):
+    """SIGTERM arrived: stop Voila (and its kernels) rather than leave it running without us."""
+
+
+def _stop_on_sigterm():
+    if threading.current_thread() is not threading.main_thread():
+        return None
+
+    def handler(signum, frame):
+        raise _Stopped()
+
+    return signal.signal(signal.SIGTERM, handler)
 
 
 def _launch(argv: list[str]) -> int:

@@ -23,7 +23,7 @@ RISK_AGE_YEARS = 60.0
 RISK_FACTORS_CERTAINTY = "from_memory"
 
 
-def _align(a: dt.datetime, b: dt.datetime) -> tuple[dt.datetime, dt.datetime]:
+def align_times(a: dt.datetime, b: dt.datetime) -> tuple[dt.datetime, dt.datetime]:
     """Make two date-times comparable: a naive one is read in the other's time zone."""
     if (a.tzinfo is None) != (b.tzinfo is None):
         if a.tzinfo is None:
@@ -40,7 +40,7 @@ def creatinine_age_days(measured_on: dt.date | dt.datetime, at: dt.datetime) -> 
     (sample taken on the 1st, exam on the 3rd → 2 days). A sample taken after ``at`` is an error.
     """
     if isinstance(measured_on, dt.datetime):
-        a, b = _align(at, measured_on)
+        a, b = align_times(at, measured_on)
         days = (a - b).total_seconds() / 86400.0
     elif isinstance(measured_on, dt.date):
         days = float((at.date() - measured_on).days)

@@ -16,6 +16,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from ..errors import RangeError
+from .freshness import align_times
 
 #: Hours after contrast before kidney function is re-checked and metformin restarted (ACR Manual, ESUR v10).
 METFORMIN_RECHECK_HOURS = 48.0
@@ -39,18 +40,9 @@ class Schedule:
     warnings: list[str] = field(default_factory=list)
 
 
-def _align(a: dt.datetime, b: dt.datetime) -> tuple[dt.datetime, dt.datetime]:
-    if (a.tzinfo is None) != (b.tzinfo is None):
-        if a.tzinfo is None:
-            a = a.replace(tzinfo=b.tzinfo)
-        else:
-            b = b.replace(tzinfo=a.tzinfo)
-    return a, b
-
-
 def hours_between(start: dt.datetime, end: dt.datetime) -> float:
     """Hours from ``start`` to ``end`` (negative if ``end`` is earlier)."""
-    s, e = _align(start, end)
+    s, e = align_times(start, end)
     return (e - s).total_seconds() / 3600.0
 
 
@@ -73,7 +65,7 @@ def lay_out(regimen: Any, exam_at: dt.datetime | None, now: dt.datetime | None) 
             continue
         t = 0.0
         while True:
-            at, _ = _align(now + dt.timedelta(hours=t), exam_at)
+            at, _ = align_times(now + dt.timedelta(hours=t), exam_at)
             out.append(Dose(at, round(lead - t, 4), step.drug, step.dose, step.route, step.optional))
             if not step.repeat_every_hours:
                 break

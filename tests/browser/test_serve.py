@@ -9,6 +9,7 @@ import json
 import socket
 import subprocess
 import sys
+import time
 import urllib.request
 
 import pytest
@@ -88,3 +89,8 @@ def test_serve_prints_the_url_and_answers(tmp_path):
     finally:
         proc.terminate()
         proc.wait(timeout=30)
+    # SIGTERM to serve() stops Voila too: the port is released, no server is left behind
+    deadline = time.monotonic() + 20
+    while not serve._port_free(port) and time.monotonic() < deadline:
+        time.sleep(0.2)
+    assert serve._port_free(port), f"Voila still holds port {port} after serve() was stopped"
