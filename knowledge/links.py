@@ -43,6 +43,8 @@ FLAGS: dict[str, str] = {
     "heart_failure": "heart_failure",
     "myasthenia": "myasthenia_gravis",
     "inpatient": "inpatient",
+    "kidney_disease": "kidney_disease_history",
+    "diabetes": "diabetes",
 }
 
 _TRUE = {"1", "true", "yes", "on", "y"}
@@ -61,7 +63,8 @@ def _flag(value: str) -> bool | str:
 def case_from_query(query: str) -> dict[str, Any]:
     """A case dict (for ``parse_case``) from a URL query string; unknown keys are ignored.
 
-    Keys: ``exam``, ``agent``, ``creatinine`` with ``unit`` (``mg/dL`` default, or ``umol/L``),
+    Keys: ``exam``, ``agent``, ``at`` (the exam's date-time), ``creatinine`` with ``unit`` (``mg/dL``
+    default, or ``umol/L``) and ``measured`` (the sample's date),
     the short keys of :data:`SCALARS` and :data:`FLAGS`, ``iv_gauge`` with ``iv_site``, and
     ``reaction=FAMILY:KIND:SEVERITY[:AGENT]`` (repeatable) for prior reactions.
     """
@@ -86,10 +89,14 @@ def case_from_query(query: str) -> dict[str, Any]:
         case["exam"] = values["exam"].strip()
     if values.get("agent"):
         case["agent"] = values["agent"].strip()
+    if values.get("at", "").strip():  # the exam's date-time: not an identifier
+        case["scheduled_at"] = values["at"].strip()
     if values.get("creatinine", "").strip():
         unit = values.get("unit", "mg/dL").strip() or "mg/dL"
         unit = {"umol/l": "umol/L", "µmol/l": "umol/L", "mg/dl": "mg/dL"}.get(unit.lower(), unit)
         patient["creatinine"] = {"value": values["creatinine"].strip(), "unit": unit}
+        if values.get("measured", "").strip():
+            patient["creatinine"]["measured_on"] = values["measured"].strip()
     for key, field in SCALARS.items():
         if values.get(key, "").strip():
             patient[field] = values[key].strip()
@@ -126,11 +133,15 @@ def query_from_case(case: m.Case | dict[str, Any]) -> str:
         pairs.append(("exam", str(case["exam"])))
     if case.get("agent"):
         pairs.append(("agent", str(case["agent"])))
+    if case.get("scheduled_at"):
+        pairs.append(("at", str(case["scheduled_at"])[:16]))
     p = case.get("patient") or {}
     cr = p.get("creatinine")
     if cr:
         pairs.append(("creatinine", _text(cr["value"])))
         pairs.append(("unit", _text(cr["unit"])))
+        if cr.get("measured_on"):
+            pairs.append(("measured", str(cr["measured_on"])[:10]))
     for key, field in SCALARS.items():
         value = p.get(field)
         if value is None or _text(value) in ("", "none"):

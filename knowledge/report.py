@@ -134,7 +134,8 @@ def timeline(decision: m.Decision, knowledge: Knowledge, scheduled_at: dt.dateti
 # --------------------------------------------------------------------------------------------------
 # protocol note
 # --------------------------------------------------------------------------------------------------
-def _dose_lines(decision: m.Decision, role_index: int, exam: m.Exam) -> list[str]:
+def dose_lines(decision: m.Decision, role_index: int, exam: m.Exam) -> list[str]:
+    """The dose plan of a role in words (dose, IV access, cautions), or its exam protocol."""
     dose = getattr(decision.roles[role_index], "dose", None)
     if dose is not None:
         fields = (("volume_ml", "{:g} mL"), ("concentration_mg_i_ml", "{:g} mg I/mL"), ("iodine_g", "{:g} g I"),
@@ -144,8 +145,10 @@ def _dose_lines(decision: m.Decision, role_index: int, exam: m.Exam) -> list[str
         basis = getattr(dose, "volume_basis", None)
         lines = ["Dose: " + ", ".join(parts) + (f" ({basis})" if basis else "")] if parts else []
         if getattr(dose, "access_message", None):
-            lines.append(f"IV access: {dose.access_message}")
-        lines += [f"Dose caution: {x}" for x in getattr(dose, "warnings", []) or []]
+            fit = "" if getattr(dose, "access_ok", True) is not False else "NOT FIT - "
+            lines.append(f"IV access: {fit}{dose.access_message}")
+        lines += [f"Dose caution: {x}" for x in getattr(dose, "warnings", []) or []
+                  if not x.startswith("IV access not fit")]  # said on the IV access line
         if lines:
             return lines
     role = exam.roles[role_index]
@@ -162,6 +165,38 @@ def _dose_lines(decision: m.Decision, role_index: int, exam: m.Exam) -> list[str
     if p.concentration_mg_i_ml:
         parts.append(f"{p.concentration_mg_i_ml:g} mg I/mL")
     return ["Exam protocol: " + ", ".join(parts) + f" ({p.certainty.value.replace('_', ' ')})"]
+
+
+def regimen_line(decision: m.Decision, knowledge: Knowledge) -> str | None:
+    """The premedication regimen laid out, with its lead time and source (None if not indicated)."""
+    if not decision.premedication.indicated or decision.premedication.regimen not in knowledge.regimens:
+        return None
+    reg = knowledge.regimens[decision.premedication.regimen]
+    return (f"{reg.name} (needs at least {_hours(reg.minimum_lead_hours)}; "
+            f"{knowledge.cite([reg.source], m.Certainty.verified)})")
+
+
+def timed_lines(decision: m.Decision, knowledge: Knowledge, scheduled_at: dt.datetime | None = None) -> list[str]:
+    """The decision-level precautions in words, with clock times where the exam time is known:
+    premedication, metformin, hydration, creatinine and dose-limit warnings."""
+    timed: list[str] = []
+    for item in timeline(decision, knowledge, scheduled_at):
+        if item.kind == "contrast":
+            continue
+        if item.kind == "metformin":
+            timed.append(f"Metformin: withhold from {_hours(item.start_h)} to {_hours(item.end_h)} after contrast"
+                         f"{_clock(scheduled_at, item.start_h)}; {item.detail}")
+        elif item.kind == "hydration":
+            timed.append(f"Hydration: {item.detail}")
+        else:
+            timed.append(f"{_hours(-item.start_h)} before contrast{_clock(scheduled_at, item.start_h)}: {item.label}")
+    if decision.metformin.takes_metformin and not decision.metformin.hold and decision.metformin.advice:
+        timed.append(f"Metformin: {decision.metformin.advice}")
+    timed += [f"Premedication: {w}" for w in decision.premedication.warnings]
+    timed += [f"Kidney: {w}" for w in decision.renal.warnings]
+    limits = decision.renal.dose_limits
+    timed += [f"Dose limits: {w}" for w in (limits.messages if limits else [])]
+    return timed
 
 
 def note_sections(decision: m.Decision, knowledge: Knowledge,
@@ -187,7 +222,7 @@ def note_sections(decision: m.Decision, knowledge: Knowledge,
             continue
         agent = knowledge.agents[chosen.agent]
         lines.append(f"Agent: {chosen.name} ({agent_kind(agent)}): {verdict_words(chosen.verdict)}")
-        lines += _dose_lines(decision, i, exam)
+        lines += dose_lines(decision, i, exam)
         for reason in chosen.reasons:
             lines.append(f"Why: {reason.text} [{reason.source}]")
             if reason.source not in sources:
@@ -204,23 +239,10 @@ def note_sections(decision: m.Decision, knowledge: Knowledge,
             lines.append("Ruled out: " + ", ".join(ruled))
         req = "" if role.required else " (optional)"
         sections.append((f"{ROUTE_WORDS[role.route].capitalize()}{req}: {role.purpose}", lines))
-    timed: list[str] = []
-    for item in timeline(decision, knowledge, scheduled_at):
-        if item.kind == "contrast":
-            continue
-        if item.kind == "metformin":
-            timed.append(f"Metformin: withhold from {_hours(item.start_h)} to {_hours(item.end_h)} after contrast"
-                         f"{_clock(scheduled_at, item.start_h)}; {item.detail}")
-        elif item.kind == "hydration":
-            timed.append(f"Hydration: {item.detail}")
-        else:
-            timed.append(f"{_hours(-item.start_h)} before contrast{_clock(scheduled_at, item.start_h)}: {item.label}")
-    if decision.metformin.takes_metformin and not decision.metformin.hold and decision.metformin.advice:
-        timed.append(f"Metformin: {decision.metformin.advice}")
-    if decision.premedication.indicated and decision.premedication.regimen in knowledge.regimens:
-        reg = knowledge.regimens[decision.premedication.regimen]
-        timed.insert(0, f"Premedication: {reg.name} (needs at least {_hours(reg.minimum_lead_hours)}; "
-                        f"{knowledge.cite([reg.source], m.Certainty.verified)})")
+    timed = timed_lines(decision, knowledge, scheduled_at)
+    regimen = regimen_line(decision, knowledge)
+    if regimen:
+        timed.insert(0, f"Premedication: {regimen}")
     if timed:
         sections.append(("Precautions and timed actions", timed))
     sections.append(("Cautions", list(decision.cautions)))

@@ -64,6 +64,12 @@ def _one(model: type[BaseModel], err: dict, prefix: str) -> str:
         limit = next(iter(ctx.values()))
         limit = f"{limit:g}" if isinstance(limit, float) else limit
         return f"{field}: {show(given)} is out of range; allowed: {bounds[etype]} {limit}"
+    if etype in ("float_parsing", "int_parsing", "float_type", "int_type"):
+        return f"{field}: {show(given)} is not a number; allowed: a number"
+    if etype in ("bool_parsing", "bool_type"):
+        return f"{field}: {show(given)} is not true or false; allowed: true, false"
+    if etype in ("datetime_parsing", "datetime_from_date_parsing", "date_parsing", "date_from_datetime_parsing"):
+        return f"{field}: {show(given)} is not a date; allowed: an ISO 8601 date such as 2026-12-01 (or 2026-12-01T09:00)"
     if etype == "value_error":
         text = str(ctx.get("error", err["msg"]))
         return f"{field}: {text}" if field else text

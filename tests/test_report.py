@@ -42,6 +42,14 @@ def test_case_from_query_and_back():
     assert parse_case(case_from_query(query_from_case(case))) == case
 
 
+def test_exam_time_and_sample_date_travel_in_the_link():
+    q = "exam=ct-angiography-aorta&at=2026-12-02T09:00&creatinine=1.9&unit=mg/dL&measured=2026-11-30&diabetes=1"
+    case = parse_case(case_from_query(q))
+    assert case.scheduled_at.isoformat() == "2026-12-02T09:00:00"
+    assert str(case.patient.creatinine.measured_on) == "2026-11-30" and case.patient.diabetes
+    assert query_from_case(case) == q
+
+
 def test_query_ignores_unknown_keys_and_maps_units():
     data = case_from_query("?exam=fluoro-esophagram&name=someone&creatinine=120&unit=umol/l&voila-token=x")
     assert data == {"exam": "fluoro-esophagram", "patient": {"creatinine": {"value": "120", "unit": "umol/L"}}}

@@ -24,7 +24,7 @@ def app() -> ContrastAidApp:
 
 
 def _cards(app: ContrastAidApp, role: int | None = None) -> list[str]:
-    return [c.value for c in app.option_cards()]
+    return list(app.option_cards())
 
 
 def _option(decision: m.Decision, agent: str) -> m.Option:
@@ -38,7 +38,7 @@ def test_app_is_a_vbox_with_test_hooks(app):
     assert "ca-exam" in app.exam.select._dom_classes
     assert "ca-decision" in app.panel._dom_classes
     assert "ca-egfr" in app.patient.egfr_readout._dom_classes
-    assert app.option_cards() and all("ca-option" in c._dom_classes for c in app.option_cards())
+    assert app.option_cards() and all("class='ca-option" in c for c in app.option_cards())
     assert "local policy and the supervising radiologist decide" in app.caution.value
     assert app.decision is not None and app.errors == []
 

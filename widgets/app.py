@@ -49,8 +49,12 @@ class ContrastAidApp(w.VBox):
     stale = traitlets.Bool(False)
     query = traitlets.Unicode("")
 
-    def __init__(self, policy_path: str | None = None, query: str = "", **kwargs: Any):
+    def __init__(self, policy_path: str | None = None, query: str = "", defer_plots: bool = False,
+                 **kwargs: Any):
         super().__init__(**kwargs)
+        # Served pages draw their plotly figures once the browser has connected: loading plotly.js while
+        # the page is first drawn cost about a second of time to interactive (benchmarks/bench_tti.py).
+        self._plots_ready = not defer_plots
         self.add_class("ca-app")
         self.knowledge: Knowledge = load_knowledge(policy=policy_path)
         self.case: m.Case | None = None
@@ -82,9 +86,11 @@ class ContrastAidApp(w.VBox):
             w.HTML('<div class="ca-group-head">Timed actions</div>'), self.timeline_out,
             w.HTML('<div class="ca-group-head">Dose plan</div>'), self.dose_out])
         self.note = ProtocolNote()
-        self.browser = KnowledgeBrowser(k)
-        browser_box = w.Accordion(children=[self.browser], selected_index=None)
+        self._browser: KnowledgeBrowser | None = None
+        self._browser_slot = w.VBox([w.HTML("<div class='ca-hint'>Opening the tables…</div>")])
+        browser_box = w.Accordion(children=[self._browser_slot], selected_index=None)
         browser_box.set_title(0, "Knowledge tables and policy in force")
+        browser_box.observe(self._on_browser_open, "selected_index")
 
         left = w.VBox([self.exam, self.patient], layout=w.Layout(width="460px", padding="0 12px 0 0"))
         right = w.VBox([self.panel, self.plots_box, self.note], layout=w.Layout(width="680px"))
@@ -97,12 +103,59 @@ class ContrastAidApp(w.VBox):
         self.exam.observe(self._on_input, "revision")
         self.patient.observe(self._on_input, "revision")
         self.recompute()
+        if defer_plots:
+            self._draw_plots_when_connected()
 
     @classmethod
     def from_environment(cls) -> "ContrastAidApp":
         """Build the app from Voila's per-page QUERY_STRING and the CONTRAST_AID_POLICY setting."""
         return cls(policy_path=os.environ.get("CONTRAST_AID_POLICY") or None,
-                   query=os.environ.get("QUERY_STRING", ""))
+                   query=os.environ.get("QUERY_STRING", ""), defer_plots=True)
+
+    def _draw_plots_when_connected(self, timeout_s: float = 20.0) -> None:
+        """Draw the plots once a front end has opened the widget control channel (it does so when it has
+        fetched the page's widgets), or after ``timeout_s``; checked on the kernel's event loop."""
+        import asyncio
+        import time
+
+        from comm import get_comm_manager
+
+        try:
+            loop = asyncio.get_event_loop()
+        except RuntimeError:
+            loop = None
+        if loop is None or not loop.is_running():  # no kernel loop (plain Python): draw now
+            self._plots_ready = True
+            self._show_plots_now()
+            return
+        deadline = time.monotonic() + timeout_s
+
+        def check() -> None:
+            comms = getattr(get_comm_manager(), "comms", {}) or {}
+            connected = any(getattr(c, "target_name", "") == "jupyter.widget.control" for c in comms.values())
+            if connected or time.monotonic() > deadline:
+                self._plots_ready = True
+                loop.call_later(0.2, self._show_plots_now)
+            else:
+                loop.call_later(0.05, check)
+
+        loop.call_later(0.05, check)
+
+    def _show_plots_now(self) -> None:
+        if self.decision is not None and self.case is not None:
+            self._show_plots(self.decision, self.case)
+
+    @property
+    def browser(self) -> KnowledgeBrowser:
+        """The knowledge browser, built the first time it is opened (it needs pandas)."""
+        if self._browser is None:
+            self._browser = KnowledgeBrowser(self.knowledge)
+            self._browser_slot.children = [self._browser]
+        return self._browser
+
+    def _on_browser_open(self, change: dict) -> None:
+        if change["new"] is not None:
+            self.browser
 
     # ---- input
     def prefill(self, query: str) -> None:
@@ -118,6 +171,8 @@ class ContrastAidApp(w.VBox):
                 self.exam.agent.value = data["agent"]
             else:
                 notes.append(f"agent: {data['agent']!r} from the link is not an agent of this exam")
+        if data.get("scheduled_at"):
+            self.exam.scheduled.value = data["scheduled_at"].replace("T", " ")
         notes += self.patient.set_patient(data.get("patient", {}))
         self.link_notes = notes
 
@@ -164,7 +219,7 @@ class ContrastAidApp(w.VBox):
         self.query = query_from_case(case)
         self.panel.set_stale(False)
         self.plots_box.remove_class("ca-stale")
-        self.panel.show(decision)
+        self.panel.show(decision, case.scheduled_at)
         self._show_egfr(decision)
         self._show_plots(decision, case)
         self.note.show(protocol_note_markdown(decision, self.knowledge, case.scheduled_at),
@@ -196,6 +251,8 @@ class ContrastAidApp(w.VBox):
         self._plot_keys[name] = key
 
     def _show_plots(self, d: m.Decision, case: m.Case) -> None:
+        if not self._plots_ready:
+            return
         k = self.knowledge
         r = d.renal
 
@@ -220,8 +277,8 @@ class ContrastAidApp(w.VBox):
         self._redraw("dose", self.dose_out, (d.exam, doses), lambda: plots.dose_figure(d, k))
 
     # ---- for tests and notebooks
-    def option_cards(self) -> list[w.HTML]:
-        """The agent cards (class ca-option) now showing."""
+    def option_cards(self) -> list[str]:
+        """The HTML of the agent cards (class ca-option) now showing."""
         return self.panel.cards()
 
 

@@ -1,7 +1,8 @@
 """The decision panel: one section per role, one card per agent, ruled-out agents collapsed with why.
 
-Cards are HTML widgets (class ``ca-option``) kept in a pool and refilled on each decision, so a change of
-input updates values instead of rebuilding widgets.
+Each role section is three HTML widgets (its heading, the usable agents' cards, the ruled-out agents'
+compact cards); each card is an element with class ``ca-option`` inside them. A change of input only
+replaces those HTML values: a page with a hundred card widgets took a second longer to show.
 """
 
 from __future__ import annotations
@@ -13,7 +14,7 @@ import ipywidgets as w
 
 from knowledge import models as m
 from knowledge.loader import Knowledge
-from knowledge.report import agent_kind
+from knowledge.report import ROUTE_WORDS, agent_kind, dose_lines, regimen_line, timed_lines
 
 from .style import VERDICT_MARK, verdict_badge
 
@@ -33,31 +34,38 @@ def _reasons(opt: m.Option) -> str:
 def card_html(opt: m.Option, agent: m.Agent, ruled_out: bool) -> str:
     chosen = " ca-chosen" if opt.chosen else ""
     planned = " · <b>planned</b>" if opt.chosen else ""
-    head = (f"<div><b>{e(opt.name)}</b> {verdict_badge(opt.verdict)}</div>"
-            f"<div class='ca-meta'>{e(agent_kind(agent))} · rank {opt.rank}{planned}</div>")
     actions = ("<div><b>Do</b><ul>" + "".join(f"<li>{e(a)}</li>" for a in opt.actions) + "</ul></div>"
                if opt.actions else "")
     body = _reasons(opt) + actions
-    if ruled_out:
-        body = f"<details><summary>why it is {VERDICT_MARK[opt.verdict][2]}</summary>{body}</details>"
-    return f"<div class='ca-card ca-v-{opt.verdict.value}{chosen}'>{head}{body}</div>"
+    if ruled_out:  # one line: name, verdict, kind; the reasons fold out
+        return (f"<div class='ca-option ca-card ca-compact ca-v-{opt.verdict.value}'>"
+                f"<details><summary><b>{e(opt.name)}</b> {verdict_badge(opt.verdict)} "
+                f"<span class='ca-meta'>{e(agent_kind(agent))} · why</span></summary>{body}</details></div>")
+    head = (f"<div><b>{e(opt.name)}</b> {verdict_badge(opt.verdict)}</div>"
+            f"<div class='ca-meta'>{e(agent_kind(agent))} · rank {opt.rank}{planned}</div>")
+    if not opt.chosen and opt.reasons:  # the planned agent shows its reasons; the alternatives fold them
+        n = len(opt.reasons)
+        body = f"<details><summary>why and what to do ({n} rule{'s' if n > 1 else ''})</summary>{body}</details>"
+    return f"<div class='ca-option ca-card ca-v-{opt.verdict.value}{chosen}'>{head}{body}</div>"
+
+
+def _set(widget: w.HTML, value: str) -> None:
+    if widget.value != value:
+        widget.value = value
 
 
 class RoleSection(w.VBox):
+    """One role: heading, the usable agents' cards, the ruled-out agents' compact cards."""
+
     def __init__(self, **kwargs: Any):
         super().__init__(**kwargs)
         self.head = w.HTML("")
-        self.usable = w.Box(layout=w.Layout(display="flex", flex_flow="row wrap", grid_gap="6px"))
-        self.ruled_head = w.HTML("")
-        self.ruled = w.Box(layout=w.Layout(display="flex", flex_flow="row wrap", grid_gap="4px"))
+        self.usable = w.HTML("")
+        self.ruled = w.HTML("")
         self.ruled.add_class("ca-ruled")
-        self.children = [self.head, self.usable, self.ruled_head, self.ruled]
+        self.children = [self.head, self.usable, self.ruled]
         self.add_class("ca-role")
-
-
-def _set_children(box: w.Box, children: list) -> None:
-    if tuple(box.children) != tuple(children):
-        box.children = children
+        self.cards: list[str] = []
 
 
 class DecisionPanel(w.VBox):
@@ -72,22 +80,14 @@ class DecisionPanel(w.VBox):
         self.summary = w.HTML("")
         self.roles_box = w.VBox()
         self.blocks = w.HTML("")
-        self._cards: list[w.HTML] = []
         self._sections: list[RoleSection] = []
         self.body = w.VBox([self.summary, self.roles_box, self.blocks])
         self.children = [self.banner, self.body]
         self.stale = False
 
-    def _card(self, i: int) -> w.HTML:
-        while len(self._cards) <= i:
-            card = w.HTML("", layout=w.Layout(width="310px"))
-            card.add_class("ca-option")
-            self._cards.append(card)
-        return self._cards[i]
-
-    def cards(self) -> list[w.HTML]:
-        """The cards showing now, in order."""
-        return [c for s in self.roles_box.children for box in (s.usable, s.ruled) for c in box.children]
+    def cards(self) -> list[str]:
+        """The HTML of the agent cards showing now (each an element of class ca-option), in order."""
+        return [c for s in self.roles_box.children for c in s.cards]
 
     def set_stale(self, stale: bool, messages: list[str] | None = None) -> None:
         self.stale = stale
@@ -101,7 +101,7 @@ class DecisionPanel(w.VBox):
             self.body.remove_class("ca-stale")
             self.banner.layout.display = "none"
 
-    def show(self, d: m.Decision) -> None:
+    def show(self, d: m.Decision, scheduled_at=None) -> None:
         k = self._knowledge
         if d.contrast is m.ContrastUse.none:
             need = "No contrast is used for this exam."
@@ -110,53 +110,48 @@ class DecisionPanel(w.VBox):
         else:
             need = "Contrast is optional for this exam: the clinical question decides."
         self.summary.value = f"<h3>{e(d.exam_name)}</h3><div>{e(need)}</div>"
-        n = 0
         sections = []
         for i, role in enumerate(d.roles):
             while len(self._sections) <= i:
                 self._sections.append(RoleSection())
             sec = self._sections[i]
             req = "" if role.required else " (optional)"
-            sec.head.value = (f"<h4>{e(role.route.value.replace('_', '-').capitalize())}{req}: "
-                              f"{e(role.purpose)}</h4>")
+            _set(sec.head, f"<h4>{e(role.route.value.replace('_', '-').capitalize())}{req}: {e(role.purpose)}</h4>")
             usable, ruled = [], []
             for opt in role.options:
                 out = opt.verdict.severity >= m.Verdict.not_advised.severity
-                card = self._card(n)
-                n += 1
-                text = card_html(opt, k.agents[opt.agent], out)
-                if card.value != text:
-                    card.value = text
-                (ruled if out else usable).append(card)
-            if not usable:
-                usable_note = w.HTML("<div class='ca-hint'>No agent is usable for this role for this patient.</div>")
-                usable = [usable_note]
-            _set_children(sec.usable, usable)
-            sec.ruled_head.value = (f"<div class='ca-hint'>Ruled out here ({len(ruled)}); open one to see why.</div>"
-                                    if ruled else "")
-            _set_children(sec.ruled, ruled)
+                (ruled if out else usable).append(card_html(opt, k.agents[opt.agent], out))
+            sec.cards = usable + ruled
+            _set(sec.usable, "<div class='ca-cards'>" + "".join(usable) + "</div>" if usable else
+                 "<div class='ca-hint'>No agent is usable for this role for this patient.</div>")
+            _set(sec.ruled, (f"<div class='ca-hint'>Ruled out here ({len(ruled)}); open one to see why.</div>"
+                             "<div class='ca-ruled-list'>" + "".join(ruled) + "</div>") if ruled else "")
             sections.append(sec)
-        _set_children(self.roles_box, sections)
-        self.blocks.value = self._blocks(d)
+        if tuple(self.roles_box.children) != tuple(sections):
+            self.roles_box.children = sections
+        self.blocks.value = self._blocks(d, scheduled_at)
 
-    def _blocks(self, d: m.Decision) -> str:
+    def _blocks(self, d: m.Decision, scheduled_at=None) -> str:
+        """The plan for the chosen agents: dose and access per role, hydration, premedication and metformin
+        with clock times, creatinine and dose-limit warnings (the same words as the protocol note)."""
         k = self._knowledge
+        exam = k.exams[d.exam]
         parts = []
-        r = d.renal
-        if r.hydration_indicated:
-            parts.append(f"<li><b>Hydration indicated</b>: {e(r.hydration_regimen or '')}</li>")
-        if d.premedication.indicated:
-            reg = k.regimens.get(d.premedication.regimen or "")
-            name = reg.name if reg else (d.premedication.regimen or "")
-            parts.append(f"<li><b>Premedication indicated</b>: {e(name)} (policy regimen; see timeline)</li>")
-        for name, block in (("Kidney", r), ("Premedication", d.premedication)):
-            for warning in getattr(block, "warnings", []) or []:
-                parts.append(f"<li><b>{name}</b>: {e(warning)}</li>")
-        limits = getattr(r, "dose_limits", None)
-        for msg in getattr(limits, "messages", []) or []:
-            parts.append(f"<li><b>Dose limits</b>: {e(msg)}</li>")
-        if d.metformin.advice:
-            parts.append(f"<li><b>Metformin</b>: {e(d.metformin.advice)}</li>")
+        for i, role in enumerate(d.roles):
+            if getattr(role, "dose", None) is None:
+                continue
+            lines = dose_lines(d, i, exam)
+            if lines:
+                parts.append(f"<li><b>{e(ROUTE_WORDS[role.route].capitalize())} dose</b><ul>"
+                             + "".join(f"<li>{e(x)}</li>" for x in lines) + "</ul></li>")
+        if d.renal.hydration_indicated:
+            parts.append(f"<li><b>Hydration indicated</b>: {e(d.renal.hydration_regimen or '')}</li>")
+        regimen = regimen_line(d, k)
+        if regimen:
+            parts.append(f"<li><b>Premedication indicated</b>: {e(regimen)}</li>")
+        for line in timed_lines(d, k, scheduled_at):
+            head, _, rest = line.partition(": ")
+            parts.append(f"<li><b>{e(head)}</b>: {e(rest)}</li>" if rest else f"<li>{e(line)}</li>")
         cautions = "".join(f"<li>{e(c)}</li>" for c in d.cautions)
         plan = f"<div><b>For the planned agents</b><ul>{''.join(parts)}</ul></div>" if parts else ""
         return plan + f"<div><b>Cautions</b><ul>{cautions}</ul></div>"

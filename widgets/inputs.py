@@ -240,13 +240,15 @@ class ReactionEditor(w.VBox):
 
 #: the boolean patient factors, by group (Patient field names)
 GROUP_FLAGS = {
-    "kidney": ["acute_kidney_injury"],
+    "kidney": ["acute_kidney_injury", "kidney_disease_history", "diabetes"],
     "gut": ["perforation_suspected", "aspiration_risk", "tracheoesophageal_fistula_suspected"],
     "other": ["takes_metformin", "hyperthyroidism", "radioiodine_planned", "pregnant", "breastfeeding",
               "shellfish_or_iodine_allergy", "heart_failure", "myasthenia_gravis", "inpatient"],
 }
 FLAG_LABEL = {
     "acute_kidney_injury": "Acute kidney injury now",
+    "kidney_disease_history": "Kidney disease, kidney surgery or a single kidney",
+    "diabetes": "Diabetes",
     "perforation_suspected": "Perforation or leak suspected",
     "aspiration_risk": "Swallowing difficulty or aspiration risk",
     "tracheoesophageal_fistula_suspected": "Tracheo-oesophageal fistula suspected",
@@ -317,7 +319,8 @@ class PatientPanel(w.VBox):
             w.HBox([self.creatinine_value, self.creatinine_unit, self.creatinine_hint]),
             self.creatinine_date, self.errors["creatinine"], number("cystatin_c_mg_l"), number("egfr"),
             w.HTML("<span class='ca-hint'>An entered eGFR is used instead of the creatinine estimate.</span>"),
-            flag("acute_kidney_injury"), self.dialysis, self.egfr_readout])
+            flag("acute_kidney_injury"), flag("kidney_disease_history"), flag("diabetes"), self.dialysis,
+            self.egfr_readout])
         # gut and swallowing
         self.obstruction = w.Dropdown(description="Bowel obstruction", style=_DESC, layout=w.Layout(width="300px"),
                                       options=[("none", "none"), ("small bowel", "small_bowel"),
@@ -398,6 +401,12 @@ class PatientPanel(w.VBox):
             if isinstance(cr, dict):
                 self.creatinine_value.value = str(cr.get("value", ""))
                 self._choose(self.creatinine_unit, str(cr.get("unit", "mg/dL")), "patient.creatinine.unit", notes)
+                if cr.get("measured_on"):
+                    try:
+                        self.creatinine_date.value = dt.date.fromisoformat(str(cr["measured_on"])[:10])
+                    except ValueError:
+                        notes.append(f"patient.creatinine.measured_on: {cr['measured_on']!r} from the link is not "
+                                     "a date; allowed: YYYY-MM-DD")
             for group in GROUP_FLAGS.values():
                 for name in group:
                     if name in p:

@@ -6,7 +6,6 @@ import html
 from typing import Any
 
 import ipywidgets as w
-import pandas as pd
 
 from knowledge.loader import Knowledge
 from knowledge.report import data_uri, knowledge_tables
@@ -47,6 +46,8 @@ class KnowledgeBrowser(w.VBox):
 
     def __init__(self, knowledge: Knowledge, **kwargs: Any):
         super().__init__(**kwargs)
+        import pandas as pd  # only when the browser is opened: pandas costs a few hundred ms to import
+
         self.add_class("ca-browser")
         self._frames = {name: pd.DataFrame(rows) for name, rows in knowledge_tables(knowledge).items()}
         pol = knowledge.policy
@@ -64,7 +65,10 @@ class KnowledgeBrowser(w.VBox):
         self.filter.observe(self._on_change, "value")
         self._render()
 
-    def rows(self) -> pd.DataFrame:
+    def rows(self):
+        """The rows of the chosen table that hold every word of the filter (a pandas DataFrame)."""
+        import pandas as pd
+
         df = self._frames[self.table.value]
         words = self.filter.value.lower().split()
         if not words or df.empty:

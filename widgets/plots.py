@@ -1,9 +1,11 @@
 """Plotly figures shown in ``widgets.Output``: eGFR on the KDIGO bands, the eGFR what-if strip, the timeline
 of timed actions and the dose plan.
 
-Figures are shown through the plain ``application/vnd.plotly.v1+json`` mimetype (what the default
-``plotly_mimetype`` renderer emits; plotly.js is served by the local extension, nothing from a CDN), with a
-text/plain description as fallback. An Output is only redrawn when what it shows has changed.
+Figures are plain plotly figure dicts shown through the ``application/vnd.plotly.v1+json`` mimetype (what
+plotly's default ``plotly_mimetype`` renderer emits; plotly.js is served by the local JupyterLab extension,
+nothing from a CDN), with a text/plain description as fallback. The Python ``plotly`` package is not imported
+in the kernel: its import pulls in nbformat and jsonschema and cost about 1.1 s of every page's start.
+An Output is only redrawn when what it shows has changed.
 """
 
 from __future__ import annotations
@@ -11,9 +13,8 @@ from __future__ import annotations
 import datetime as dt
 from typing import Any
 
+import html
 import ipywidgets as w
-import plotly.graph_objects as go
-import plotly.io as pio
 
 from knowledge import models as m
 from knowledge.calculators.kidney import KDIGO_CATEGORIES
@@ -25,23 +26,26 @@ from .style import BAND_COLOUR, BAND_TEXT, TIMELINE_COLOUR, VERDICT_MARK
 
 WIDTH = 640
 EGFR_MAX = 130.0
-_MIME = pio.renderers["plotly_mimetype"]
+PLOTLY_MIME = "application/vnd.plotly.v1+json"
+CONFIG = {"displaylogo": False, "responsive": False,
+          "modeBarButtonsToRemove": ["select2d", "lasso2d", "autoScale2d"]}
 
 
 def plot_output(height: int) -> w.Output:
-    return w.Output(layout=w.Layout(width=f"{WIDTH + 10}px", min_height=f"{height}px", overflow="hidden"))
+    out = w.Output(layout=w.Layout(width=f"{WIDTH + 10}px", overflow="hidden"))
+    out.figure_height = height  # type: ignore[attr-defined]
+    return out
 
 
-def show_figure(out: w.Output, fig: go.Figure | dict | None, text: str) -> None:
-    """Replace what ``out`` shows by ``fig`` (a Figure or a figure dict; or ``text`` alone when None)."""
+def show_figure(out: w.Output, fig: dict | None, text: str) -> None:
+    """Replace what ``out`` shows by the figure dict ``fig`` (or by ``text`` alone when None)."""
     data: dict[str, Any] = {"text/plain": text}
     if fig is not None:
-        fig_dict = fig.to_dict() if isinstance(fig, go.Figure) else dict(fig)
-        data.update(_MIME.to_mimebundle(fig_dict))
+        data[PLOTLY_MIME] = {"data": fig["data"], "layout": fig["layout"], "config": CONFIG}
+        out.layout.min_height = f"{fig['layout'].get('height', 100)}px"
     else:
-        import html
-
         data["text/html"] = f"<div class='ca-hint'>{html.escape(text)}</div>"
+        out.layout.min_height = None
     out.outputs = ({"output_type": "display_data", "data": data, "metadata": {}},)
 
 
@@ -52,41 +56,47 @@ def _base_layout(height: int, **kw: Any) -> dict[str, Any]:
 
 # ---- eGFR on the KDIGO bands --------------------------------------------------------------------
 def policy_thresholds(knowledge: Knowledge) -> list[tuple[float, str]]:
+    """The policy's eGFR settings, merged where they share a value: [(eGFR, 'hydration, metformin')]."""
     p = knowledge.policy
     named = [
-        (p.egfr_hydration_below, "IV hydration below"),
-        (p.egfr_prophylaxis_consider_below, "prophylaxis considered below"),
-        (p.egfr_first_pass_hydration_below, "first-pass hydration below"),
-        (p.metformin_hold_egfr_below, "metformin held below"),
+        (p.egfr_hydration_below, "hydrate (IV)"),
+        (p.egfr_prophylaxis_consider_below, "consider prophylaxis"),
+        (p.egfr_first_pass_hydration_below, "hydrate (first pass)"),
+        (p.metformin_hold_egfr_below, "hold metformin"),
     ]
     merged: dict[float, list[str]] = {}
     for x, label in named:
         merged.setdefault(float(x), []).append(label)
-    return [(x, "; ".join(labels) + f" {x:g}") for x, labels in sorted(merged.items())]
+    return [(x, ", ".join(labels)) for x, labels in sorted(merged.items())]
 
 
 def egfr_figure(knowledge: Knowledge) -> dict:
-    """The bands and the policy lines (a figure dict, built once); the last trace is the patient marker."""
-    fig = go.Figure()
-    bounds = [(name, low) for name, low in KDIGO_CATEGORIES]  # high to low
+    """The bands and the policy lines (a figure dict, built once); the last trace is the patient marker,
+    on a row of its own under the bands so it never covers a band's name."""
+    data: list[dict[str, Any]] = []
+    bounds = list(KDIGO_CATEGORIES)  # high to low
     highs = [EGFR_MAX] + [low for _, low in bounds[:-1]]
     for (name, low), high in zip(bounds, highs):
-        fig.add_trace(go.Bar(x=[high - low], base=[low], y=["KDIGO"], orientation="h", name=name,
-                             marker=dict(color=BAND_COLOUR[name], line=dict(color="#ffffff", width=1)),
-                             text=[name], textposition="inside", insidetextanchor="middle",
-                             textfont=dict(color=BAND_TEXT[name]), hoverinfo="text",
-                             hovertext=[f"{name}: {low:g}–{high:g}" if high < EGFR_MAX else f"{name}: {low:g} and above"]))
+        span = f"{low:g}–{high:g}" if high < EGFR_MAX else f"{low:g} and above"
+        data.append(dict(type="bar", x=[high - low], base=[low], y=["bands"], orientation="h", name=name,
+                         marker=dict(color=BAND_COLOUR[name], line=dict(color="#ffffff", width=1)),
+                         text=[name], textposition="inside", insidetextanchor="middle",
+                         textfont=dict(color=BAND_TEXT[name]), hoverinfo="text", hovertext=[f"{name}: {span}"]))
+    shapes, notes = [], []
     for i, (x, label) in enumerate(policy_thresholds(knowledge)):
-        fig.add_vline(x=x, line=dict(color="#5b2a86", dash="dash", width=2))
-        fig.add_annotation(x=x, y=1.0 + 0.22 * (i % 2), yref="paper", text=label, showarrow=False,
-                           xanchor="left", font=dict(size=10, color="#5b2a86"))
-    fig.add_trace(go.Scatter(x=[], y=[], mode="markers+text", name="patient", textposition="bottom center",
-                             marker=dict(symbol="diamond", size=16, color="#000000", line=dict(color="#fff", width=2)),
-                             cliponaxis=False))
-    fig.update_layout(**_base_layout(150, barmode="overlay"),
-                      xaxis=dict(range=[0, EGFR_MAX], title="eGFR, mL/min/1.73 m² (KDIGO 2012 G categories)"),
-                      yaxis=dict(showticklabels=False))
-    return fig.to_dict()
+        shapes.append(_vline(x, "#5b2a86", 2, "dash"))
+        notes.append(dict(x=x, y=1.02 + 0.17 * (i % 2), yref="paper", text=f"<b>{x:g}</b> {label}",
+                          showarrow=False, xanchor="left", xshift=2, yanchor="bottom",
+                          font=dict(size=10, color="#5b2a86")))
+    data.append(dict(type="scatter", x=[], y=[], mode="markers+text", name="patient", textposition="middle right",
+                     marker=dict(symbol="diamond", size=14, color="#000000", line=dict(color="#ffffff", width=2)),
+                     cliponaxis=False, hoverinfo="text"))
+    layout = _base_layout(170, barmode="overlay")
+    layout["margin"] = dict(l=70, r=20, t=48, b=40)
+    layout.update(xaxis=dict(range=[0, EGFR_MAX], title=dict(text="eGFR, mL/min/1.73 m² (KDIGO 2012 G categories)")),
+                  yaxis=dict(categoryorder="array", categoryarray=["patient", "bands"], tickfont=dict(size=11)),
+                  shapes=shapes, annotations=notes, bargap=0.15)
+    return dict(data=data, layout=layout)
 
 
 def set_egfr(fig: dict, egfr: float | None, category: str | None) -> str:
@@ -96,7 +106,8 @@ def set_egfr(fig: dict, egfr: float | None, category: str | None) -> str:
         marker["x"], marker["y"], marker["text"] = [], [], []
         return "eGFR unknown"
     x = min(float(egfr), EGFR_MAX)
-    marker["x"], marker["y"], marker["text"] = [x], ["KDIGO"], [f"{egfr:g} ({category})"]
+    marker["x"], marker["y"], marker["text"] = [x], ["patient"], [f" {egfr:g} ({category})"]
+    marker["hovertext"] = [f"this patient: eGFR {egfr:g}, {category}"]
     return f"eGFR {egfr:g} mL/min/1.73 m², KDIGO {category}"
 
 
@@ -106,6 +117,10 @@ def _vline(x: Any, colour: str, width: int = 2, dash: str = "solid") -> dict[str
                 line=dict(color=colour, width=width, dash=dash))
 
 
+#: eGFR span below which a what-if segment shows its glyph only (its words would be too small to read)
+_MIN_LABELLED_WIDTH = 35.0
+
+
 def whatif_figure(whatif: WhatIf, egfr: float | None) -> tuple[dict | None, str]:
     if not whatif.segments:
         return None, whatif.note
@@ -113,15 +128,18 @@ def whatif_figure(whatif: WhatIf, egfr: float | None) -> tuple[dict | None, str]
     data, descr = [], []
     for s in whatif.segments:
         glyph, colour, words = VERDICT_MARK[s.verdict]
-        label = f"{glyph} {words}" + ("; hydrate" if s.hydration else "")
+        label = f"{glyph} {words}" + (" + hydrate" if s.hydration else "")
         if len(agents) > 1:
             label += f" · {s.agent_name}"
         dark_text = s.verdict is m.Verdict.suitable_with_precautions
         data.append(dict(type="bar", x=[s.high - s.low], base=[s.low], y=["plan"], orientation="h",
                          marker=dict(color=colour, line=dict(color="#ffffff", width=2),
-                                     pattern=dict(shape="/" if s.hydration else "", fgcolor="#ffffff")),
-                         text=[label], textposition="inside", insidetextanchor="middle",
-                         textfont=dict(color="#1f2d3d" if dark_text else "#ffffff"), hoverinfo="text",
+                                     pattern=dict(shape="/" if s.hydration else "", fillmode="overlay", fgcolor="#1f2d3d",
+                                                  fgopacity=0.35, size=8)),
+                         text=[label if s.high - s.low >= _MIN_LABELLED_WIDTH
+                               else glyph + (" + hydrate" if s.hydration and s.high - s.low >= 20 else "")],
+                         textposition="inside", insidetextanchor="middle", constraintext="none",
+                         textfont=dict(color="#1f2d3d" if dark_text else "#ffffff", size=11), hoverinfo="text",
                          hovertext=[f"eGFR {s.low:g}–{s.high:g}: {s.agent_name}, {words}"
                                     + (", hydration indicated" if s.hydration else "")]))
         descr.append(f"{s.low:g}–{s.high:g}: {s.agent_name} {words}" + (" (hydration)" if s.hydration else ""))
@@ -190,7 +208,7 @@ def timeline_figure(items: list[TimelineItem], scheduled_at: dt.datetime | None)
 
 
 # ---- dose plan ----------------------------------------------------------------------------------
-def dose_figure(decision: m.Decision, knowledge: Knowledge) -> tuple[go.Figure | None, str]:
+def dose_figure(decision: m.Decision, knowledge: Knowledge) -> tuple[dict | None, str]:
     """The first intravascular role's dose block (``RoleDecision.dose``) against the agent's strengths."""
     role = next((r for r in decision.roles if getattr(r, "dose", None) is not None), None)
     dose = getattr(role, "dose", None)
@@ -207,14 +225,19 @@ def dose_figure(decision: m.Decision, knowledge: Knowledge) -> tuple[go.Figure |
     pairs = volumes_by_strength(float(iodine), agent)
     chosen_c = getattr(dose, "concentration_mg_i_ml", None)
     cap = prot.max_volume_ml if prot else None
-    fig = go.Figure(go.Bar(
-        x=[f"{c:g} mg I/mL" for c, _ in pairs], y=[v for _, v in pairs],
+    data = [dict(
+        type="bar", x=[f"{c:g} mg I/mL" for c, _ in pairs], y=[v for _, v in pairs],
         marker=dict(color=["#0072B2" if c == chosen_c else "#98b6d8" for c, _ in pairs],
                     pattern=dict(shape=["" if c == chosen_c else "." for c, _ in pairs])),
         text=[f"{v:.0f} mL" + (" (planned)" if c == chosen_c else "") for c, v in pairs],
-        textposition="outside", cliponaxis=False))
+        textposition="outside", cliponaxis=False, hoverinfo="text",
+        hovertext=[f"{c:g} mg I/mL: {v:.0f} mL for {iodine:.1f} g I" for c, v in pairs])]
+    shapes, notes = [], []
     if cap is not None:
-        fig.add_hline(y=cap, line=dict(color="#5b2a86", dash="dash"), annotation_text=f"exam cap {cap:g} mL")
+        shapes.append(dict(type="line", xref="paper", yref="y", x0=0, x1=1, y0=cap, y1=cap,
+                           line=dict(color="#5b2a86", dash="dash", width=2)))
+        notes.append(dict(xref="paper", x=0, y=cap, yref="y", text=f"exam cap {cap:g} mL", showarrow=False,
+                          xanchor="left", yanchor="bottom", font=dict(size=10, color="#5b2a86")))
     flow = getattr(dose, "flow_ml_s", None)
     idr = getattr(dose, "iodine_delivery_rate_g_s", None)
     title = (f"{agent.name}: {iodine:.1f} g I"
@@ -222,7 +245,9 @@ def dose_figure(decision: m.Decision, knowledge: Knowledge) -> tuple[go.Figure |
              + (f" at {flow:g} mL/s" if isinstance(flow, (int, float)) else "")
              + (f" = {idr:.2f} g I/s" if isinstance(idr, (int, float)) else ""))
     top = max([v for _, v in pairs] + [cap or 0]) * 1.25
-    fig.update_layout(**_base_layout(230), title=dict(text=title, font=dict(size=12)),
-                      yaxis=dict(title="volume for this iodine dose, mL", range=[0, top]),
-                      xaxis=dict(title="strengths of the agent"))
+    layout = _base_layout(230)
+    layout.update(title=dict(text=title, font=dict(size=12)), shapes=shapes, annotations=notes,
+                  yaxis=dict(title=dict(text="volume for this iodine dose, mL"), range=[0, top]),
+                  xaxis=dict(title=dict(text="strengths of the agent")))
+    fig = dict(data=data, layout=layout)
     return fig, title + ". Volume by strength: " + ", ".join(f"{c:g} mg I/mL → {v:.0f} mL" for c, v in pairs)

@@ -46,7 +46,11 @@ CSS = """
 .ca-card .ca-meta, .ca-source { color: #4a5a6a; font-size: 88%; }
 .ca-verdict { border: 1px solid; border-radius: 10px; padding: 0 6px; white-space: nowrap; }
 .ca-glyph { font-size: 115%; }
-.ca-ruled .ca-card { background: #f7f7f7; }
+.ca-cards { display: flex; flex-flow: row wrap; gap: 6px; }
+.ca-cards .ca-card { width: 310px; box-sizing: border-box; }
+.ca-ruled-list { display: grid; grid-template-columns: repeat(2, minmax(0, 1fr)); gap: 2px 6px; }
+.ca-card.ca-compact { background: #f7f7f7; padding: 2px 8px; }
+.ca-card.ca-compact summary { cursor: pointer; }
 .ca-stale { opacity: 0.4; filter: grayscale(100%); }
 .ca-stale-banner { background: #efe6f5; border-left: 4px solid #5b2a86; padding: 6px 10px; }
 .ca-table { border-collapse: collapse; font-size: 88%; }
