@@ -26,7 +26,7 @@ DECISION_SUPPORT = (
 )
 READINESS = (
     "Wherever iodinated contrast is given, trained staff, a reaction kit and epinephrine must be at hand "
-    "(ACR Manual on Contrast Media, treatment of acute reactions)."
+    "(common practice)."
 )
 _SYSTEMIC = m.INTRAVASCULAR | {m.Route.intrathecal}
 _SEVERITY = {"none": 0, "mild": 1, "moderate": 2, "severe": 3}

@@ -138,9 +138,9 @@ def dose_lines(decision: m.Decision, role_index: int, exam: m.Exam) -> list[str]
     """The dose plan of a role in words (dose, IV access, cautions), or its exam protocol."""
     dose = getattr(decision.roles[role_index], "dose", None)
     if dose is not None:
-        fields = (("volume_ml", "{:g} mL"), ("concentration_mg_i_ml", "{:g} mg I/mL"), ("iodine_g", "{:g} g I"),
-                  ("flow_ml_s", "{:g} mL/s"), ("iodine_delivery_rate_g_s", "{:g} g I/s"), ("duration_s", "{:g} s"))
-        parts = [fmt.format(round(getattr(dose, f), 2)) for f, fmt in fields
+        fields = (("volume_ml", "{:.0f} mL"), ("concentration_mg_i_ml", "{:g} mg I/mL"), ("iodine_g", "{:.1f} g I"),
+                  ("flow_ml_s", "{:g} mL/s"), ("iodine_delivery_rate_g_s", "{:.2f} g I/s"), ("duration_s", "{:.0f} s"))
+        parts = [fmt.format(getattr(dose, f)) for f, fmt in fields
                  if isinstance(getattr(dose, f, None), (int, float))]
         basis = getattr(dose, "volume_basis", None)
         lines = ["Dose: " + ", ".join(parts) + (f" ({basis})" if basis else "")] if parts else []
@@ -184,8 +184,9 @@ def timed_lines(decision: m.Decision, knowledge: Knowledge, scheduled_at: dt.dat
         if item.kind == "contrast":
             continue
         if item.kind == "metformin":
-            timed.append(f"Metformin: withhold from {_hours(item.start_h)} to {_hours(item.end_h)} after contrast"
-                         f"{_clock(scheduled_at, item.start_h)}; {item.detail}")
+            timed.append(f"Metformin: withhold from the contrast{_clock(scheduled_at, item.start_h)} for "
+                         f"{_hours(item.end_h - item.start_h)}; restart only after kidney function is re-checked"
+                         f"{_clock(scheduled_at, item.end_h)}")
         elif item.kind == "hydration":
             timed.append(f"Hydration: {item.detail}")
         else:

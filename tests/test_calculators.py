@@ -277,7 +277,8 @@ def test_hydration_weight_based():
     assert (hp.rate_ml_h, hp.volume_before_ml, hp.volume_after_ml, hp.total_ml) == (80, 80, 480, 560)
     assert hp.start_at == dt.datetime(2025, 3, 10, 9, 0) and hp.stop_at == dt.datetime(2025, 3, 10, 16, 0)
     assert hp.warnings == [hydration.HEART_FAILURE_CAUTION]
-    # ESUR v10: 1 mL/kg/h for 4 h before and 6 h after -> 70 kg: 280 + 420 mL
+    # ESUR v10 saline regimen (from memory: 1 mL/kg/h for 3-4 h before and 4-6 h after): 4 h and 6 h for
+    # 70 kg -> 280 + 420 mL (computed)
     esur = hydration.weight_based_plan(70, 1.0, 4, 6)
     assert (esur.volume_before_ml, esur.volume_after_ml) == (280, 420)
     with pytest.raises(RangeError) as e:

@@ -1,8 +1,8 @@
 """Widget logic in pure Python: build the app, set control values, assert on the decision it shows.
 
 Clinical expectations come from the rules table (knowledge/data/rules.yaml) and its sources:
-- barium-perforation: barium is contraindicated when perforation or leak is suspected (common practice;
-  ACR Manual on Contrast Media, barium section).
+- barium-perforation: barium is contraindicated when perforation or leak is suspected (common practice:
+  the clinical notes mark it checked, but name no source).
 - renal-hydrate-low-egfr: eGFR below the policy's 30 without dialysis -> IV hydration indicated
   (ACR-NKF 2020 consensus statements, Radiology 2020).
 - CKD-EPI 2021 creatinine equation (N Engl J Med 2021): 60-year-old man, creatinine 1.4 mg/dL -> 57.5.

@@ -46,7 +46,7 @@ CSS = """
 .ca-card .ca-meta, .ca-source { color: #4a5a6a; font-size: 88%; }
 .ca-verdict { border: 1px solid; border-radius: 10px; padding: 0 6px; white-space: nowrap; }
 .ca-glyph { font-size: 115%; }
-.ca-cards { display: flex; flex-flow: row wrap; gap: 6px; }
+.ca-cards { display: flex; flex-flow: row wrap; gap: 6px; align-items: flex-start; }
 .ca-cards .ca-card { width: 310px; box-sizing: border-box; }
 .ca-ruled-list { display: grid; grid-template-columns: repeat(2, minmax(0, 1fr)); gap: 2px 6px; }
 .ca-card.ca-compact { background: #f7f7f7; padding: 2px 8px; }

@@ -102,7 +102,7 @@ def test_perforation_changes_the_verdicts(page, voila_server):
     page.wait_for_function(
         "() => Array.from(document.querySelectorAll('.ca-option')).some(e => e.innerText.includes('contraindicated'))")
     # Barium leaking into the mediastinum or peritoneum is the reason a water-soluble agent is used when a
-    # perforation is suspected (ACR Manual on Contrast Media, barium and water-soluble agents in the GI tract).
+    # perforation is suspected (common practice; rule barium-perforation names no checked source).
     assert "contraindicated" in card(page, "Thin barium sulfate suspension").inner_text()
     assert "suitable" in card(page, "Iohexol").inner_text()
     screenshot(page, "02-perforation-suspected")
