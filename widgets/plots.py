@@ -182,7 +182,8 @@ def timeline_figure(items: list[TimelineItem], scheduled_at: dt.datetime | None)
         if item.end_h > item.start_h:
             width = (item.end_h - item.start_h) * (3600 * 1000 if scheduled_at else 1)  # ms on a date axis
             data.append(dict(type="bar", x=[width], base=[at(item.start_h)], y=[item.kind], orientation="h",
-                             marker=dict(color=colour, pattern=dict(shape="x", fgcolor="#ffffff")),
+                             marker=dict(color=colour, pattern=dict(shape="x", fillmode="overlay", fgcolor="#ffffff",
+                                                                 fgopacity=0.5)),
                              text=[item.label], textposition="inside", hoverinfo="text",
                              hovertext=[f"{item.label}: {item.start_h:+g} h to {item.end_h:+g} h"]))
         else:
@@ -228,7 +229,8 @@ def dose_figure(decision: m.Decision, knowledge: Knowledge) -> tuple[dict | None
     data = [dict(
         type="bar", x=[f"{c:g} mg I/mL" for c, _ in pairs], y=[v for _, v in pairs],
         marker=dict(color=["#0072B2" if c == chosen_c else "#98b6d8" for c, _ in pairs],
-                    pattern=dict(shape=["" if c == chosen_c else "." for c, _ in pairs])),
+                    pattern=dict(shape=["" if c == chosen_c else "." for c, _ in pairs], fillmode="overlay",
+                                 fgcolor="#ffffff", fgopacity=0.6)),
         text=[f"{v:.0f} mL" + (" (planned)" if c == chosen_c else "") for c, v in pairs],
         textposition="outside", cliponaxis=False, hoverinfo="text",
         hovertext=[f"{c:g} mg I/mL: {v:.0f} mL for {iodine:.1f} g I" for c, v in pairs])]
@@ -236,8 +238,8 @@ def dose_figure(decision: m.Decision, knowledge: Knowledge) -> tuple[dict | None
     if cap is not None:
         shapes.append(dict(type="line", xref="paper", yref="y", x0=0, x1=1, y0=cap, y1=cap,
                            line=dict(color="#5b2a86", dash="dash", width=2)))
-        notes.append(dict(xref="paper", x=0, y=cap, yref="y", text=f"exam cap {cap:g} mL", showarrow=False,
-                          xanchor="left", yanchor="bottom", font=dict(size=10, color="#5b2a86")))
+        notes.append(dict(xref="paper", x=1, y=cap, yref="y", text=f"exam cap {cap:g} mL", showarrow=False,
+                          xanchor="right", yanchor="bottom", font=dict(size=10, color="#5b2a86")))
     flow = getattr(dose, "flow_ml_s", None)
     idr = getattr(dose, "iodine_delivery_rate_g_s", None)
     title = (f"{agent.name}: {iodine:.1f} g I"
