@@ -18,7 +18,8 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from benchmarks.bench_tti import CHROMIUM, CHROMIUM_ARGS, free_port, start  # noqa: E402
+from benchmarks.bench_tti import free_port, start  # noqa: E402
+from tests.browser.chromium import CHROMIUM, CHROMIUM_ARGS  # noqa: E402
 from widgets import serve  # noqa: E402
 
 # In the page: click, then watch the card with a MutationObserver and resolve with the elapsed ms.
@@ -46,7 +47,7 @@ def main(argv: list[str] | None = None) -> int:
     proc = start(serve.voila_command(port, None), port, serve.voila_environment(None))
     try:
         with sync_playwright() as p:
-            browser = p.chromium.launch(executable_path=CHROMIUM, args=CHROMIUM_ARGS)
+            browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
             page = browser.new_page(viewport={"width": 1400, "height": 1000})
             page.goto(serve.url_for(port) + "?exam=fluoro-esophagram")
             page.wait_for_selector(".ca-option", timeout=120_000)

@@ -35,16 +35,7 @@ sys.path.insert(0, str(ROOT))
 
 from widgets import serve  # noqa: E402
 
-CHROMIUM = "/usr/bin/chromium"
-CHROMIUM_ARGS = [
-    "--headless",
-    "--no-sandbox",
-    "--disable-gpu",
-    "--no-first-run",
-    "--disable-background-networking",
-    "--disable-component-update",
-    "--disable-sync",
-]
+from tests.browser.chromium import CHROMIUM, CHROMIUM_ARGS  # noqa: E402
 SLIDER_NOTEBOOK = {
     "cells": [
         {
@@ -108,7 +99,7 @@ def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--loads", type=int, default=7, help="timed page loads per server (default 7)")
     args = parser.parse_args(argv)
-    if not Path(CHROMIUM).exists():
+    if not CHROMIUM.exists():
         print(f"{CHROMIUM} not found: install the Debian package chromium", file=sys.stderr)
         return 2
     from playwright.sync_api import sync_playwright
@@ -127,7 +118,7 @@ def main(argv: list[str] | None = None) -> int:
         ]
         try:
             with sync_playwright() as p:
-                browser = p.chromium.launch(executable_path=CHROMIUM, args=CHROMIUM_ARGS)
+                browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
                 targets = {
                     "one-slider notebook": (serve.url_for(slider_port), ".widget-slider", None),
                     "contrast-aid dashboard": (serve.url_for(app_port), ".ca-exam", ".js-plotly-plot .main-svg"),

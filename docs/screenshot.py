@@ -11,7 +11,8 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from benchmarks.bench_tti import CHROMIUM, CHROMIUM_ARGS, free_port, start  # noqa: E402
+from benchmarks.bench_tti import free_port, start  # noqa: E402
+from tests.browser.chromium import CHROMIUM, CHROMIUM_ARGS  # noqa: E402
 from widgets import serve  # noqa: E402
 
 # Invented patient: 71-year-old woman, creatinine 1.9 mg/dL, takes metformin, earlier mild allergic-like
@@ -28,7 +29,7 @@ def main() -> int:
     proc = start(serve.voila_command(port, None), port, serve.voila_environment(None))
     try:
         with sync_playwright() as p:
-            browser = p.chromium.launch(executable_path=CHROMIUM, args=CHROMIUM_ARGS)
+            browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
             page = browser.new_page(viewport={"width": 1400, "height": 2300})
             page.goto(serve.url_for(port) + "?" + QUERY)
             page.wait_for_selector(".ca-option", timeout=120_000)

@@ -22,19 +22,11 @@ import pytest
 
 from widgets import serve
 
+from .chromium import CHROMIUM, CHROMIUM_ARGS
+
 ROOT = Path(__file__).resolve().parents[2]
 ARTIFACTS = ROOT / "test-artifacts"
 SCREENSHOTS = ARTIFACTS / "screenshots"
-CHROMIUM = Path("/usr/bin/chromium")
-CHROMIUM_ARGS = [
-    "--headless",
-    "--no-sandbox",
-    "--disable-gpu",
-    "--no-first-run",
-    "--disable-background-networking",
-    "--disable-component-update",
-    "--disable-sync",
-]
 LOCAL_PREFIXES = ("http://127.0.0.1:", "http://localhost:", "ws://127.0.0.1:", "ws://localhost:", "data:", "blob:")
 #: kernel start + first render of the dashboard, with room for a loaded CI machine
 LOAD_TIMEOUT_MS = 90_000
