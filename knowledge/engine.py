@@ -121,6 +121,12 @@ def decide(case: Any, knowledge: Knowledge | None = None) -> m.Decision:
     if case.agent is not None and case.agent not in k.agents:
         raise CaseError(f"agent: {case.agent!r} is not a known agent; allowed: the ids of `contrast-aid agents`",
                         field="agent")
+    if case.agent is not None:
+        possible = sorted({a.id for role in exam.roles for a in k.compatible[role.route]})
+        if case.agent not in possible:
+            allowed = ", ".join(possible) if possible else "none (this exam uses no contrast)"
+            raise CaseError(f"agent: {case.agent!r} cannot be given in any role of {exam.id}; allowed: {allowed}",
+                            field="agent")
     for i, r in enumerate(case.patient.prior_reactions):
         if r.agent is not None and r.agent not in k.agents:
             raise CaseError(

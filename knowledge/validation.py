@@ -66,6 +66,10 @@ def _one(model: type[BaseModel], err: dict, prefix: str) -> str:
         return f"{field}: {show(given)} is out of range; allowed: {bounds[etype]} {limit}"
     if etype in ("float_parsing", "int_parsing", "float_type", "int_type"):
         return f"{field}: {show(given)} is not a number; allowed: a number"
+    if etype in ("dict_type", "model_type", "model_attributes_type"):
+        return f"{field}: {show(given)} is not an object; allowed: an object with the fields of {field or 'the case'}"
+    if etype == "list_type":
+        return f"{field}: {show(given)} is not a list; allowed: a list"
     if etype in ("bool_parsing", "bool_type"):
         return f"{field}: {show(given)} is not true or false; allowed: true, false"
     if etype in ("datetime_parsing", "datetime_from_date_parsing", "date_parsing", "date_from_datetime_parsing"):

@@ -76,6 +76,12 @@ def test_decide_from_stdin(monkeypatch, capsys):
      "contrast-aid: exam: 'ct-abdomen-pelvi' is not a known exam (did you mean ct-abdomen-pelvis, "
      "ct-abdomen-pelvis-leak?); allowed: the ids of `contrast-aid exams`\n"),
     ('{"patient": {}}', "contrast-aid: exam: required field is missing\n"),
+    ('{"exam": "ct-chest", "patient": []}',
+     "contrast-aid: patient: [] is not an object; allowed: an object with the fields of patient\n"),
+    ('{"exam": "ct-chest", "agent": "barium-thin"}',
+     "contrast-aid: agent: 'barium-thin' cannot be given in any role of ct-chest; allowed: carbon-dioxide, "),
+    ('{"exam": "ct-chest", "scheduled_at": "tomorrow"}',
+     "contrast-aid: scheduled_at: 'tomorrow' is not a date; allowed: an ISO 8601 date"),
     ('[1, 2]', "contrast-aid: case: must be a JSON object with 'exam' and 'patient'; got list\n"),
     ('{"exam": "ct-chest",', "contrast-aid: CASE: not valid JSON at line 1, column 21: Expecting property name "
      "enclosed in double quotes\n"),
