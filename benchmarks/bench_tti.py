@@ -20,6 +20,7 @@ template; the browser aborts requests off the machine for both pages so a missin
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import os
 import socket
@@ -70,6 +71,29 @@ def start(cmd: list[str], port: int, env: dict[str, str]) -> subprocess.Popen:
         serve.stop(proc)
         raise SystemExit(f"server on port {port} did not start: {' '.join(cmd)}")
     return proc
+
+
+@contextlib.contextmanager
+def dashboard_page(query: str, viewport: dict[str, int]):
+    """A served dashboard (its own Voila on a free port) open in headless Chromium at ``?query``, with the
+    agent cards drawn; the server and the browser are stopped on exit."""
+    from playwright.sync_api import sync_playwright
+
+    port = free_port()
+    proc = start(serve.voila_command(port, None), port, serve.voila_environment(None))
+    try:
+        with sync_playwright() as p:
+            browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
+            page = browser.new_page(viewport=viewport)
+            page.goto(serve.url_for(port) + "?" + query)
+            page.wait_for_selector(".ca-option", timeout=120_000)
+            try:
+                yield page
+            finally:
+                page.close(run_before_unload=True)
+                browser.close()
+    finally:
+        serve.stop(proc)
 
 
 def time_load(browser, url: str, selector: str, plot_selector: str | None = None) -> tuple[float, float | None]:

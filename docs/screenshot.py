@@ -11,9 +11,7 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from benchmarks.bench_tti import free_port, start  # noqa: E402
-from tests.browser.chromium import CHROMIUM, CHROMIUM_ARGS  # noqa: E402
-from widgets import serve  # noqa: E402
+from benchmarks.bench_tti import dashboard_page  # noqa: E402
 
 # Invented patient: 71-year-old woman, creatinine 1.9 mg/dL, takes metformin, earlier mild allergic-like
 # reaction to iohexol; CT abdomen and pelvis tomorrow 09:00.
@@ -23,28 +21,16 @@ QUERY = ("exam=ct-abdomen-pelvis&at=2026-12-02T09:00&creatinine=1.9&unit=mg/dL&m
 
 
 def main() -> int:
-    from playwright.sync_api import sync_playwright
-
-    port = free_port()
-    proc = start(serve.voila_command(port, None), port, serve.voila_environment(None))
-    try:
-        with sync_playwright() as p:
-            browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
-            page = browser.new_page(viewport={"width": 1400, "height": 2300})
-            page.goto(serve.url_for(port) + "?" + QUERY)
-            page.wait_for_selector(".ca-option", timeout=120_000)
-            page.wait_for_function("() => document.querySelectorAll('.js-plotly-plot .main-svg').length >= 3",
-                                   timeout=120_000)
-            height = page.evaluate("() => Math.max(...Array.from(document.querySelectorAll("
-                                   "'#rendered_cells, .ca-app')).map(e => e.scrollHeight))")
-            page.set_viewport_size({"width": 1400, "height": min(int(height) + 40, 8000)})
-            page.wait_for_timeout(600)
-            out = ROOT / "docs" / "dashboard.png"
-            page.screenshot(path=str(out), full_page=True)
-            print(out)
-            browser.close()
-    finally:
-        serve.stop(proc)
+    with dashboard_page(QUERY, {"width": 1400, "height": 2300}) as page:
+        page.wait_for_function("() => document.querySelectorAll('.js-plotly-plot .main-svg').length >= 3",
+                               timeout=120_000)
+        height = page.evaluate("() => Math.max(...Array.from(document.querySelectorAll("
+                               "'#rendered_cells, .ca-app')).map(e => e.scrollHeight))")
+        page.set_viewport_size({"width": 1400, "height": min(int(height) + 40, 8000)})
+        page.wait_for_timeout(600)
+        out = ROOT / "docs" / "dashboard.png"
+        page.screenshot(path=str(out), full_page=True)
+        print(out)
     return 0
 
 

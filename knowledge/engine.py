@@ -147,7 +147,7 @@ def decide(case: Any, knowledge: Knowledge | None = None) -> m.Decision:
     flags: set[m.Flag] = set()
     cautions: list[str] = [DECISION_SUPPORT]
     roles: list[m.RoleDecision] = []
-    chosen_iodinated = False
+    systemic_iodinated = False
 
     for index, role in enumerate(exam.roles):
         pref = {aid: i for i, aid in enumerate(role.agents)}
@@ -187,7 +187,7 @@ def decide(case: Any, knowledge: Knowledge | None = None) -> m.Decision:
                                  and verdict.severity <= m.Verdict.suitable_with_precautions.severity)
             if in_plan:
                 flags |= rule_flags
-                chosen_iodinated |= agent.family is m.Family.iodinated and role.route in _SYSTEMIC
+                systemic_iodinated |= agent.family is m.Family.iodinated and role.route in _SYSTEMIC
                 for text in lifted:
                     if text not in cautions:
                         cautions.append(text)
@@ -204,7 +204,7 @@ def decide(case: Any, knowledge: Knowledge | None = None) -> m.Decision:
             if cr.text not in cautions:
                 cautions.append(cr.text)
             flags.update(cr.rule.effect.flags)
-    if m.Flag.reaction_readiness in flags or chosen_iodinated:
+    if m.Flag.reaction_readiness in flags or systemic_iodinated:
         cautions.append(READINESS)
 
     pol = k.policy

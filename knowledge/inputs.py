@@ -82,14 +82,10 @@ def case_problems(data: dict) -> list[tuple[str, str]]:
     """
     from pydantic import ValidationError
 
-    from .validation import _one, dotted
+    from .validation import problems
 
     try:
         m.Case.model_validate(data)
     except ValidationError as exc:
-        out = []
-        for err in exc.errors(include_url=False):
-            loc = tuple(p for p in err["loc"] if isinstance(p, int) or ("[" not in p and not p[:1].isupper()))
-            out.append((dotted(loc), _one(m.Case, err, "")))
-        return out
+        return problems(exc, m.Case)
     return []

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import datetime as dt
 from enum import Enum
-from typing import Annotated, Any, Literal, Union
+from typing import Any, Literal, Union
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 

@@ -45,9 +45,13 @@ def dotted(loc: tuple) -> str:
     return out or "(top level)"
 
 
+def clean_loc(loc: tuple) -> tuple:
+    """``loc`` without the member names unions add to it ("function-after[...]", "Test", ...)."""
+    return tuple(p for p in loc if isinstance(p, int) or ("[" not in p and not p[:1].isupper()))
+
+
 def _one(model: type[BaseModel], err: dict, prefix: str) -> str:
-    # unions add their member names to loc ("function-after[...]", "Test", ...): drop them
-    loc = tuple(p for p in err["loc"] if isinstance(p, int) or ("[" not in p and not p[:1].isupper()))
+    loc = clean_loc(err["loc"])
     field = (prefix + "." if prefix else "") + dotted(loc) if loc else prefix
     etype, ctx, given = err["type"], err.get("ctx") or {}, err.get("input")
     if etype == "extra_forbidden":
@@ -78,6 +82,11 @@ def _one(model: type[BaseModel], err: dict, prefix: str) -> str:
         text = str(ctx.get("error", err["msg"]))
         return f"{field}: {text}" if field else text
     return f"{field}: {show(given)} is not valid ({err['msg'].lower()})"
+
+
+def problems(exc: ValidationError, model: type[BaseModel]) -> list[tuple[str, str]]:
+    """Every error of ``exc`` as (dotted field, one-line message)."""
+    return [(dotted(clean_loc(err["loc"])), _one(model, err, "")) for err in exc.errors(include_url=False)]
 
 
 def describe(exc: ValidationError, model: type[BaseModel], prefix: str = "") -> str:

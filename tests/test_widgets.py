@@ -10,7 +10,6 @@ Clinical expectations come from the rules table (knowledge/data/rules.yaml) and 
 
 from __future__ import annotations
 
-import os
 
 import pytest
 

@@ -7,7 +7,6 @@ then update widget values in place.
 
 from __future__ import annotations
 
-import datetime as dt
 import html
 import os
 from typing import Any
@@ -74,10 +73,10 @@ class ContrastAidApp(w.VBox):
         self.exam = ExamPicker(k)
         self.patient = PatientPanel(k)
         self.panel = DecisionPanel(k)
-        self.egfr_out = plots.plot_output(150)
-        self.whatif_out = plots.plot_output(140)
-        self.timeline_out = plots.plot_output(120)
-        self.dose_out = plots.plot_output(60)
+        self.egfr_out = plots.plot_output()
+        self.whatif_out = plots.plot_output()
+        self.timeline_out = plots.plot_output()
+        self.dose_out = plots.plot_output()
         self.egfr_fig = plots.egfr_figure(k)
         self.plots_box = w.VBox([
             w.HTML('<div class="ca-group-head">Where this eGFR sits (KDIGO bands, policy thresholds)</div>'),

@@ -19,7 +19,7 @@ import ipywidgets as w
 from knowledge import models as m
 from knowledge.calculators.kidney import KDIGO_CATEGORIES
 from knowledge.loader import Knowledge
-from knowledge.report import TimelineItem, verdict_words, volumes_by_strength
+from knowledge.report import TimelineItem, volumes_by_strength
 from knowledge.whatif import WhatIf
 
 from .style import BAND_COLOUR, BAND_TEXT, TIMELINE_COLOUR, VERDICT_MARK
@@ -31,10 +31,9 @@ CONFIG = {"displaylogo": False, "responsive": False,
           "modeBarButtonsToRemove": ["select2d", "lasso2d", "autoScale2d"]}
 
 
-def plot_output(height: int) -> w.Output:
-    out = w.Output(layout=w.Layout(width=f"{WIDTH + 10}px", overflow="hidden"))
-    out.figure_height = height  # type: ignore[attr-defined]
-    return out
+def plot_output() -> w.Output:
+    """An Output of fixed width (so a plot never covers the controls); its height follows the figure."""
+    return w.Output(layout=w.Layout(width=f"{WIDTH + 10}px", overflow="hidden"))
 
 
 def show_figure(out: w.Output, fig: dict | None, text: str) -> None:
