@@ -15,9 +15,10 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from knowledge.engine import parse_case  # noqa: E402
-from knowledge.loader import load_knowledge  # noqa: E402
-from knowledge.plans import add_plans  # noqa: E402
+from knowledge.decision.engine import parse_case  # noqa: E402
+from knowledge.tables.loader import load_knowledge  # noqa: E402
+from knowledge.decision.engine import decide  # noqa: E402
+from knowledge.decision.plans import add_plans  # noqa: E402
 
 ADULT = {"age_years": 66, "sex": "female", "weight_kg": 70, "height_cm": 165,
          "creatinine": {"value": 1.3, "unit": "mg/dL", "measured_on": "2025-03-01"}}
@@ -60,9 +61,9 @@ def main() -> None:
     worst = 0.0
     for name, raw in PLAN_CASES.items():
         case = parse_case(raw)
-        k.decide(case)
-        runs = [_per_call_ms(lambda: k.decide(case), 200) for _ in range(5)]
-        decision = k.decide(case)
+        decide(case, k)
+        runs = [_per_call_ms(lambda: decide(case, k), 200) for _ in range(5)]
+        decision = decide(case, k)
         plans = statistics.median(_per_call_ms(lambda: add_plans(case, k, decision), 200) for _ in range(5))
         med = statistics.median(runs)
         worst = max(worst, med)
@@ -76,12 +77,12 @@ def main() -> None:
         cases = []
     if cases:
         for c in cases:
-            k.decide(c)
+            decide(c, k)
         rounds = 20
         t = time.perf_counter()
         for _ in range(rounds):
             for c in cases:
-                k.decide(c)
+                decide(c, k)
         mean = (time.perf_counter() - t) * 1000 / (rounds * len(cases))
         print(f"scenario vectors: mean {mean:.3f} ms per case over {len(cases)} cases x {rounds}")
     print(f"slowest plan case: {worst:.3f} ms (target <= 1 ms)")

@@ -15,7 +15,7 @@ from benchmarks.bench_tti import dashboard_page  # noqa: E402
 
 # Invented patient: 71-year-old woman, creatinine 1.9 mg/dL, takes metformin, earlier mild allergic-like
 # reaction to iohexol; CT abdomen and pelvis tomorrow 09:00.
-QUERY = ("exam=ct-abdomen-pelvis&at=2026-12-02T09:00&creatinine=1.9&unit=mg/dL&measured=2026-11-28&age=71"
+QUERY = ("exam=ct-abdomen-pelvis&at=2026-12-02T09:00&asof=2026-12-01T15:00&creatinine=1.9&unit=mg/dL&measured=2026-11-28&age=71"
          "&sex=female&weight=68&height=162&metformin=1&iv_gauge=20&iv_site=antecubital"
          "&reaction=iodinated:allergic_like:mild:iohexol")
 

@@ -1,8 +1,13 @@
-"""contrast-aid domain core: knowledge tables, rule engine, calculators. Never imports ipywidgets."""
+"""contrast-aid domain core: knowledge tables, rule engine, calculators. Never imports ipywidgets.
 
-from .engine import decide, parse_case
+Layers, lowest first (each imports only from those below it; ``tests/test_layers.py`` walks the imports):
+``errors`` → ``tables`` → ``calculators`` → ``decision`` → ``present`` → (``widgets``) → ``cli``.
+This package's own namespace re-exports the public API and is imported by nothing inside it.
+"""
+
+from .decision.engine import decide, parse_case
 from .errors import CaseError, ContrastAidError, KnowledgeError, RangeError
-from .loader import Knowledge, load_knowledge
+from .tables.loader import Knowledge, load_knowledge
 
 __all__ = [
     "CaseError",

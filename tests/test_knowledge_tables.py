@@ -8,9 +8,10 @@ from pathlib import Path
 import pytest
 import yaml
 
-from knowledge import models as m
+from knowledge.tables import models as m
 from knowledge.errors import KnowledgeError
-from knowledge.loader import DATA_DIR, load_knowledge, load_policy
+from knowledge.tables.loader import DATA_DIR, load_knowledge, load_policy
+from knowledge.decision.engine import decide
 
 REQUIRED_EXAMS = """fluoro-esophagram fluoro-upper-gi fluoro-small-bowel-follow-through fluoro-sbo-contrast-challenge
 fluoro-contrast-enema fluoro-loopogram fluoro-fistulogram fluoro-tube-check fluoro-cystogram fluoro-urethrogram
@@ -91,9 +92,9 @@ def test_esur_policy_profile_moves_the_first_pass_verdict():
     # ESUR v10 (clinical notes, European guideline): first-pass arterial exposure at eGFR < 45 is at risk;
     # the North American default (ACR-NKF 2020) uses eGFR < 30 for every intravascular exposure.
     case = {"exam": "angio-visceral-renal", "patient": {"egfr": 40}}
-    assert not load_knowledge().decide(case).renal.hydration_indicated
+    assert not decide(case, load_knowledge()).renal.hydration_indicated
     esur = load_knowledge(policy=DATA_DIR / "policies" / "esur-v10.yaml")
-    d = esur.decide(case)
+    d = decide(case, esur)
     assert d.renal.hydration_indicated and d.policy == "esur-v10-example"
     iohexol = next(o for o in d.roles[0].options if o.agent == "iohexol")
     assert "below 45" in next(r.text for r in iohexol.reasons if r.rule == "renal-hydrate-first-pass")

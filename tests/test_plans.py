@@ -1,4 +1,4 @@
-"""Scenario tests of the plans (knowledge/plans.py): the blocks a decision gains, with real numbers and
+"""Scenario tests of the plans (knowledge/decision/plans.py): the blocks a decision gains, with real numbers and
 clock times. Fixed ``as_of`` times only, never the wall clock.
 
 Scenario sources: premedication regimens — ACR Manual on Contrast Media (policy ``regimens``); metformin —
@@ -13,11 +13,13 @@ import datetime as dt
 
 import pytest
 
-from knowledge import models as m
+from knowledge.tables import models as m
 from knowledge.calculators import timeline
 from knowledge.errors import CaseError, RangeError
-from knowledge.loader import load_knowledge
-from knowledge.plans import add_dose_parser, dose_block, dose_plan
+from knowledge.tables.loader import load_knowledge
+from knowledge.decision.engine import decide
+from knowledge.cli.dose import add_dose_parser, dose_plan
+from knowledge.decision.plans import dose_block
 
 T = dt.datetime
 
@@ -43,8 +45,8 @@ ADULT = {"age_years": 50, "sex": "female", "weight_kg": 70, "height_cm": 165,
 # --------------------------------------------------------------------------------------------------
 def test_premedication_exam_tomorrow_0900(k):
     # ACR Manual elective regimen: prednisone 50 mg PO 13, 7 and 1 h before (+ optional diphenhydramine 1 h)
-    d = k.decide(_case(exam="ct-angiography-head-neck", scheduled_at="2025-03-11T09:00:00",
-                       patient={**ADULT, "prior_reactions": MODERATE_ALLERGIC}))
+    d = decide(_case(exam="ct-angiography-head-neck", scheduled_at="2025-03-11T09:00:00",
+                       patient={**ADULT, "prior_reactions": MODERATE_ALLERGIC}), k)
     pm = d.premedication
     assert pm.indicated and pm.regimen == "prednisone-13h" and pm.lead_hours == 19.0
     assert [(s.at, s.drug, s.dose, s.route, s.optional) for s in pm.schedule] == [
@@ -58,9 +60,9 @@ def test_premedication_exam_tomorrow_0900(k):
 
 def test_premedication_exam_in_3_hours(k):
     # not enough time for 13 h: the accelerated IV regimen is offered (ACR Manual: >= 4-5 h), with warnings
-    d = k.decide(_case(exam="ct-angiography-head-neck", as_of="2025-03-10T10:00:00",
+    d = decide(_case(exam="ct-angiography-head-neck", as_of="2025-03-10T10:00:00",
                        scheduled_at="2025-03-10T13:00:00",
-                       patient={**ADULT, "prior_reactions": MODERATE_ALLERGIC}))
+                       patient={**ADULT, "prior_reactions": MODERATE_ALLERGIC}), k)
     pm = d.premedication
     assert pm.indicated and pm.regimen == "accelerated-iv" and pm.lead_hours == 3.0
     assert [(s.at, s.drug.split()[0], s.dose, s.route) for s in pm.schedule] == [
@@ -92,9 +94,9 @@ def test_premedication_without_exam_time(k):
 # --------------------------------------------------------------------------------------------------
 def test_metformin_egfr_25(k):
     # ACR Manual: eGFR < 30 -> stop at the time of contrast, withhold 48 h, re-check before restarting
-    d = k.decide(_case(exam="ct-abdomen-pelvis", scheduled_at="2025-03-10T16:30:00",
+    d = decide(_case(exam="ct-abdomen-pelvis", scheduled_at="2025-03-10T16:30:00",
                        patient={"age_years": 70, "sex": "male", "weight_kg": 80, "height_cm": 178, "egfr": 25,
-                                "takes_metformin": True}))
+                                "takes_metformin": True}), k)
     mb = d.metformin
     assert mb.hold and mb.hold_from == T(2025, 3, 10, 16, 30)
     assert mb.recheck_after_hours == 48 and mb.recheck_at == T(2025, 3, 12, 16, 30)
@@ -113,8 +115,8 @@ def test_metformin_egfr_25(k):
 
 
 def test_hydration_heart_failure_caution(k):
-    d = k.decide(_case(exam="ct-abdomen-pelvis", scheduled_at="2025-03-10T16:00:00",
-                       patient={"age_years": 70, "weight_kg": 60, "egfr": 20, "heart_failure": True}))
+    d = decide(_case(exam="ct-abdomen-pelvis", scheduled_at="2025-03-10T16:00:00",
+                       patient={"age_years": 70, "weight_kg": 60, "egfr": 20, "heart_failure": True}), k)
     hp = d.renal.hydration_plan
     assert hp is not None and hp.rate_ml_h == 60
     assert hp.warnings and hp.warnings[0].startswith("Heart failure: IV fluid may cause volume overload")
@@ -125,8 +127,8 @@ def test_hydration_heart_failure_caution(k):
 # --------------------------------------------------------------------------------------------------
 def test_cta_5_ml_s_through_22_gauge_hand_vein(k):
     # ct-angiography-head-neck protocol: 5 mL/s, scan 6 s + 8 s, 350 mg I/mL (exams.yaml, common practice)
-    d = k.decide(_case(exam="ct-angiography-head-neck", scheduled_at="2025-03-10T15:00:00",
-                       patient={**ADULT, "iv_access": {"gauge": 22, "site": "hand_or_wrist"}}))
+    d = decide(_case(exam="ct-angiography-head-neck", scheduled_at="2025-03-10T15:00:00",
+                       patient={**ADULT, "iv_access": {"gauge": 22, "site": "hand_or_wrist"}}), k)
     dose = d.roles[0].dose
     assert dose.agent == "iohexol" and dose.concentration_mg_i_ml == 350
     assert dose.volume_ml == 70.0 and dose.iodine_g == 24.5  # 5 * (6 + 8) = 70 mL; 70 * 0.35 = 24.5 g
@@ -135,16 +137,16 @@ def test_cta_5_ml_s_through_22_gauge_hand_vein(k):
     assert dose.access_message.startswith("Hand or wrist vein: at most 1.5 mL/s (ACR Manual); 5 mL/s planned")
     assert "22-gauge may tolerate up to 5 mL/s" in dose.access_message
     # an antecubital 22-gauge at 5 mL/s is tolerated, with the 20-gauge preference stated
-    d2 = k.decide(_case(exam="ct-angiography-head-neck",
-                        patient={**ADULT, "iv_access": {"gauge": 22, "site": "antecubital"}}))
+    d2 = decide(_case(exam="ct-angiography-head-neck",
+                        patient={**ADULT, "iv_access": {"gauge": 22, "site": "antecubital"}}), k)
     assert d2.roles[0].dose.access_ok is True
 
 
 def test_warming_a_370_agent(k):
     # iopamidol 370: 20.9 mPa·s at 20 °C (from memory), 8.6 at 37 °C (J Nucl Med Technol table);
     # Hagen-Poiseuille: same flow, same catheter -> pressure ratio 8.6 / 20.9 = 0.41
-    d = k.decide(_case(exam="ct-angiography-aorta", agent="iopamidol", planned_concentration_mg_i_ml=370,
-                       patient={**ADULT, "iv_access": {"gauge": 18, "site": "antecubital"}}))
+    d = decide(_case(exam="ct-angiography-aorta", agent="iopamidol", planned_concentration_mg_i_ml=370,
+                       patient={**ADULT, "iv_access": {"gauge": 18, "site": "antecubital"}}), k)
     dose = d.roles[0].dose
     assert dose.agent == "iopamidol" and dose.concentration_mg_i_ml == 370
     assert dose.viscosity_mpas.at_20c == 20.9 and dose.viscosity_mpas.at_37c == 8.6
@@ -156,7 +158,7 @@ def test_warming_a_370_agent(k):
 
 def test_strength_not_in_catalogue_is_an_error(k):
     with pytest.raises(RangeError) as e:
-        k.decide(_case(exam="ct-angiography-aorta", agent="iopamidol", planned_concentration_mg_i_ml=350))
+        decide(_case(exam="ct-angiography-aorta", agent="iopamidol", planned_concentration_mg_i_ml=350), k)
     assert str(e.value) == "planned_concentration_mg_i_ml: 350 is not a strength of iopamidol; allowed: 200, 300, 370"
 
 
@@ -184,9 +186,9 @@ def test_weight_based_dose_capped():
 # --------------------------------------------------------------------------------------------------
 def test_catheter_study_cigarroa_below_planned_volume(k):
     # Cigarroa (Am J Med 1989): 5 mL * 80 kg / 2.5 mg/dL = 160 mL < 200 mL planned
-    d = k.decide(_case(exam="angio-coronary", scheduled_at="2025-03-11T08:00:00", planned_volume_ml=200,
+    d = decide(_case(exam="angio-coronary", scheduled_at="2025-03-11T08:00:00", planned_volume_ml=200,
                        patient={"age_years": 70, "sex": "male", "weight_kg": 80, "height_cm": 175,
-                                "creatinine": {"value": 221, "unit": "umol/L", "measured_on": "2025-03-10"}}))
+                                "creatinine": {"value": 221, "unit": "umol/L", "measured_on": "2025-03-10"}}), k)
     lim = d.renal.dose_limits
     assert lim.cigarroa_max_ml == 160 and lim.catheter_volume_ml == 200 and lim.cigarroa_exceeded is True
     assert any(msg.startswith("Planned 200 mL is above the Cigarroa maximum of 160 mL") for msg in lim.messages)
@@ -201,26 +203,26 @@ def test_catheter_study_cigarroa_below_planned_volume(k):
 def test_stale_creatinine_outpatient_and_inpatient(k):
     pat = {"age_years": 65, "sex": "male", "weight_kg": 80, "height_cm": 178,
            "creatinine": {"value": 1.0, "unit": "mg/dL", "measured_on": "2025-03-05"}}
-    out = k.decide(_case(exam="ct-abdomen-pelvis", scheduled_at="2025-03-10T15:00:00", patient=pat)).renal
+    out = decide(_case(exam="ct-abdomen-pelvis", scheduled_at="2025-03-10T15:00:00", patient=pat), k).renal
     assert out.creatinine_age_days == 5.0 and out.creatinine_max_age_days == 30 and out.creatinine_stale is False
     assert out.creatinine_required and out.creatinine_required_because == ["age over 60"]
-    inp = k.decide(_case(exam="ct-abdomen-pelvis", scheduled_at="2025-03-10T15:00:00",
-                         patient={**pat, "inpatient": True})).renal
+    inp = decide(_case(exam="ct-abdomen-pelvis", scheduled_at="2025-03-10T15:00:00",
+                         patient={**pat, "inpatient": True}), k).renal
     assert inp.creatinine_max_age_days == 2 and inp.creatinine_stale is True
     assert inp.warnings[0].startswith("Creatinine is 5.0 days old at the exam time; the policy accepts at most 2")
 
 
 def test_no_creatinine_required_without_risk_factors(k):
-    d = k.decide(_case(exam="ct-abdomen-pelvis", patient={"age_years": 40, "weight_kg": 70}))
+    d = decide(_case(exam="ct-abdomen-pelvis", patient={"age_years": 40, "weight_kg": 70}), k)
     assert d.renal.creatinine_required is False and d.renal.warnings == []
     assert d.roles[0].dose.volume_ml == 116.7  # 0.5 g I/kg * 70 kg / 300 mg I/mL
 
 
 def test_creatinine_after_exam_is_an_error(k):
     with pytest.raises(RangeError) as e:
-        k.decide(_case(exam="ct-abdomen-pelvis", scheduled_at="2025-03-10T15:00:00",
+        decide(_case(exam="ct-abdomen-pelvis", scheduled_at="2025-03-10T15:00:00",
                        patient={"age_years": 65, "sex": "male",
-                                "creatinine": {"value": 1.0, "unit": "mg/dL", "measured_on": "2025-03-11"}}))
+                                "creatinine": {"value": 1.0, "unit": "mg/dL", "measured_on": "2025-03-11"}}), k)
     assert str(e.value) == ("patient.creatinine.measured_on: 2025-03-11 is after the exam time "
                             "2025-03-10T15:00:00; allowed: a sample taken before the exam")
 

@@ -11,14 +11,15 @@ import base64
 
 import pytest
 
-from knowledge import models as m
-from knowledge.engine import parse_case
-from knowledge.inputs import case_problems, creatinine_hint, field_range, hint
-from knowledge.links import case_from_query, query_from_case
-from knowledge.loader import load_knowledge
-from knowledge.report import (data_uri, knowledge_tables, protocol_note_html, protocol_note_markdown, timeline,
+from knowledge.tables import models as m
+from knowledge.decision.engine import parse_case
+from knowledge.present.form import case_problems, creatinine_hint, field_range, hint
+from knowledge.present.links import case_from_query, query_from_case
+from knowledge.tables.loader import load_knowledge
+from knowledge.decision.engine import decide
+from knowledge.present.report import (data_uri, knowledge_tables, protocol_note_html, protocol_note_markdown, timeline,
                               volumes_by_strength)
-from knowledge.whatif import breakpoints, egfr_sweep, verdict_at
+from knowledge.present.whatif import breakpoints, egfr_sweep, verdict_at
 
 
 @pytest.fixture(scope="module")
@@ -87,7 +88,7 @@ def test_egfr_sweep_without_intravascular_role(k):
 
 
 def test_protocol_note_names_exam_agent_sources_and_version(k):
-    d = k.decide(CT)
+    d = decide(CT, k)
     md = protocol_note_markdown(d, k)
     assert md.startswith("# Contrast protocol note: CT abdomen and pelvis")
     assert "Decision support only" in md
@@ -100,15 +101,27 @@ def test_protocol_note_names_exam_agent_sources_and_version(k):
 
 
 def test_note_escapes_html(k):
-    d = k.decide({"exam": "ct-abdomen-pelvis"})
-    assert "<script" not in protocol_note_html(d, k).lower()
+    # Text that reaches the note (exam name, cautions, reasons) is escaped: a hostile string put into the
+    # decision comes out as entities, never as markup. Without html.escape this fails.
+    d = decide({"exam": "ct-abdomen-pelvis", "patient": {"takes_metformin": True}}, k)
+    hostile = '<script>alert("x")</script><img src=x onerror=alert(1)>'
+    first = d.roles[0].options[0]
+    reason = first.reasons[0] if first.reasons else m.Reason(rule="r", text="t", source="s",
+                                                             certainty=m.Certainty.common_practice)
+    d = d.model_copy(update={
+        "exam_name": hostile, "cautions": [hostile, *d.cautions],
+        "roles": [d.roles[0].model_copy(update={"options": [first.model_copy(update={
+            "name": hostile, "reasons": [reason.model_copy(update={"text": hostile})]})]})]})
+    page = protocol_note_html(d, k)
+    assert "<script" not in page.lower() and "<img src=x" not in page.lower()
+    assert "&lt;script&gt;" in page and "&lt;img src=x onerror=alert(1)&gt;" in page
 
 
 def test_timeline_premedication_metformin(k):
     case = parse_case({"exam": "ct-abdomen-pelvis", "patient": {
         "age_years": 60, "sex": "male", "creatinine": {"value": 3.4, "unit": "mg/dL"}, "takes_metformin": True,
         "prior_reactions": [{"agent_family": "iodinated", "kind": "allergic_like", "severity": "moderate"}]}})
-    d = k.decide(case)
+    d = decide(case, k)
     items = timeline(d, k)
     pre = [i for i in items if i.kind == "premedication"]
     assert pre and min(i.start_h for i in pre) == -13  # prednisone 13 h regimen (ACR Manual)

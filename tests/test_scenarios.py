@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import pytest
 
-from knowledge.loader import load_knowledge
+from knowledge.tables.loader import load_knowledge
+from knowledge.decision.engine import decide
 from tests.scenarios import check, load_vectors
 
 VECTORS = load_vectors()
@@ -26,6 +27,6 @@ def test_enough_scenarios_each_with_a_source():
 
 @pytest.mark.parametrize("vector", VECTORS, ids=[v["id"] for v in VECTORS])
 def test_scenario(vector, knowledge):
-    decision = knowledge.decide(vector["case"])
+    decision = decide(vector["case"], knowledge)
     problems = check(decision, vector["expect"])
     assert not problems, f"{vector['id']} ({vector['source']}):\n  " + "\n  ".join(problems)

@@ -11,14 +11,23 @@ Clinical expectations come from the rules table (knowledge/data/rules.yaml) and 
 from __future__ import annotations
 
 
+import datetime as dt
+
 import pytest
 
-from knowledge import models as m
-from widgets.app import ContrastAidApp
+from knowledge.tables import models as m
+from widgets.app import ContrastAidApp as _App
+
+#: every app in these tests runs on a fixed clock, never the wall clock
+NOW = dt.datetime(2026, 3, 10, 14, 0)
+
+
+def ContrastAidApp(**kwargs) -> _App:  # noqa: N802 - stands in for the class
+    return _App(clock=lambda: NOW, **kwargs)
 
 
 @pytest.fixture()
-def app() -> ContrastAidApp:
+def app() -> _App:
     return ContrastAidApp()
 
 
@@ -159,7 +168,7 @@ def test_query_with_bad_values_reports_them():
 def test_from_environment(monkeypatch):
     monkeypatch.setenv("QUERY_STRING", "exam=fluoro-esophagram&perforation=1")
     monkeypatch.delenv("CONTRAST_AID_POLICY", raising=False)
-    app = ContrastAidApp.from_environment()
+    app = _App.from_environment(clock=lambda: NOW)
     assert app.decision.exam == "fluoro-esophagram"
     assert _option(app.decision, "barium-thin").verdict is m.Verdict.contraindicated
 

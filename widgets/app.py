@@ -1,12 +1,13 @@
 """The dashboard: ``ContrastAidApp`` ties the case form to the decision, the plots and the note.
 
-Each app builds its own :class:`knowledge.loader.Knowledge` (no module-level cache), holds its state on
-itself, and recomputes on every input change: validate (``knowledge.inputs.case_problems``), decide,
+Each app builds its own :class:`knowledge.tables.loader.Knowledge` (no module-level cache), holds its state on
+itself, and recomputes on every input change: validate (``knowledge.present.form.case_problems``), decide,
 then update widget values in place.
 """
 
 from __future__ import annotations
 
+import datetime as dt
 import html
 import os
 from typing import Any
@@ -14,14 +15,15 @@ from typing import Any
 import ipywidgets as w
 import traitlets
 
-from knowledge import models as m
-from knowledge.engine import DECISION_SUPPORT, parse_case
+from knowledge.tables import models as m
+from knowledge.decision.engine import DECISION_SUPPORT, parse_case
+from knowledge.decision.engine import decide
 from knowledge.errors import ContrastAidError
-from knowledge.inputs import case_problems
-from knowledge.links import case_from_query, query_from_case
-from knowledge.loader import Knowledge, load_knowledge
-from knowledge.report import protocol_note_html, protocol_note_markdown, timeline
-from knowledge.whatif import WhatIf, egfr_sweep
+from knowledge.present.form import case_problems
+from knowledge.present.links import case_from_query, query_from_case
+from knowledge.tables.loader import Knowledge, load_knowledge
+from knowledge.present.report import protocol_note_html, protocol_note_markdown, timeline
+from knowledge.present.whatif import WhatIf, egfr_sweep
 
 from . import plots
 from .decision import DecisionPanel
@@ -31,6 +33,11 @@ from .style import CSS
 
 CAUTION = ("Decision support only: local policy and the supervising radiologist decide; licensed practice "
            "applies. Check every suggestion against the patient and the local product information.")
+
+
+def wall_clock() -> dt.datetime:
+    """The server's local time to the minute: the page's "now" unless a link or the user sets one."""
+    return dt.datetime.now().replace(second=0, microsecond=0)
 
 
 def _field_key(field: str) -> str:
@@ -49,7 +56,7 @@ class ContrastAidApp(w.VBox):
     query = traitlets.Unicode("")
 
     def __init__(self, policy_path: str | None = None, query: str = "", defer_plots: bool = False,
-                 **kwargs: Any):
+                 clock=wall_clock, **kwargs: Any):
         super().__init__(**kwargs)
         # Served pages draw their plotly figures once the browser has connected: loading plotly.js while
         # the page is first drawn cost about a second of time to interactive (benchmarks/bench_tti.py).
@@ -70,7 +77,8 @@ class ContrastAidApp(w.VBox):
             "<h2 style='margin:4px 0'>contrast-aid · choosing a contrast agent</h2>"
             f"<div class='ca-hint'>Knowledge {k.version} · policy {html.escape(k.policy.name)} · "
             "no patient identifiers are asked for or kept</div>")
-        self.exam = ExamPicker(k)
+        self.exam = ExamPicker(k, clock)
+        self.exam.set_as_of(None)
         self.patient = PatientPanel(k)
         self.panel = DecisionPanel(k)
         self.egfr_out = plots.plot_output()
@@ -106,10 +114,10 @@ class ContrastAidApp(w.VBox):
             self._draw_plots_when_connected()
 
     @classmethod
-    def from_environment(cls) -> "ContrastAidApp":
+    def from_environment(cls, clock=wall_clock) -> "ContrastAidApp":
         """Build the app from Voila's per-page QUERY_STRING and the CONTRAST_AID_POLICY setting."""
         return cls(policy_path=os.environ.get("CONTRAST_AID_POLICY") or None,
-                   query=os.environ.get("QUERY_STRING", ""), defer_plots=True)
+                   query=os.environ.get("QUERY_STRING", ""), defer_plots=True, clock=clock)
 
     def _draw_plots_when_connected(self, timeout_s: float = 20.0) -> None:
         """Draw the plots once a front end has opened the widget control channel (it does so when it has
@@ -158,7 +166,7 @@ class ContrastAidApp(w.VBox):
 
     # ---- input
     def prefill(self, query: str) -> None:
-        """Fill the form from a URL query string (see knowledge.links.case_from_query)."""
+        """Fill the form from a URL query string (see knowledge.present.links.case_from_query)."""
         data = case_from_query(query)
         notes: list[str] = []
         if "exam" in data:
@@ -172,6 +180,8 @@ class ContrastAidApp(w.VBox):
                 notes.append(f"agent: {data['agent']!r} from the link is not an agent of this exam")
         if data.get("scheduled_at"):
             self.exam.scheduled.value = data["scheduled_at"].replace("T", " ")
+        if data.get("as_of"):
+            self.exam.set_as_of(data["as_of"], "the time in the link")
         notes += self.patient.set_patient(data.get("patient", {}))
         self.link_notes = notes
 
@@ -192,7 +202,7 @@ class ContrastAidApp(w.VBox):
         if not problems:
             try:
                 case = parse_case(data)
-                decision = self.knowledge.decide(case)
+                decision = decide(case, self.knowledge)
                 self._update_whatif(case)
             except ContrastAidError as exc:
                 problems = [(exc.field or exc.message.split(":")[0], exc.message)]

@@ -12,9 +12,9 @@ from typing import Any
 
 import ipywidgets as w
 
-from knowledge import models as m
-from knowledge.loader import Knowledge
-from knowledge.report import ROUTE_WORDS, agent_kind, dose_lines, regimen_line, timed_lines
+from knowledge.tables import models as m
+from knowledge.tables.loader import Knowledge
+from knowledge.present.report import ROUTE_WORDS, agent_kind, dose_lines, regimen_line, timed_lines
 
 from .style import VERDICT_MARK, verdict_badge
 

@@ -12,9 +12,9 @@ from typing import Any
 import ipywidgets as w
 import traitlets
 
-from knowledge import models as m
-from knowledge.inputs import NUMBERS, creatinine_hint, hint
-from knowledge.loader import Knowledge
+from knowledge.tables import models as m
+from knowledge.present.form import NUMBERS, creatinine_hint, hint
+from knowledge.tables.loader import Knowledge
 
 MODALITY_LABEL = {m.Modality.fluoroscopy: "Fluoro", m.Modality.angiography: "Angio", m.Modality.ct: "CT"}
 MODALITY_ORDER = {m.Modality.fluoroscopy: 0, m.Modality.angiography: 1, m.Modality.ct: 2}
@@ -45,7 +45,7 @@ class ExamPicker(w.VBox):
     exam_id = traitlets.Unicode("")
     revision = traitlets.Int(0)
 
-    def __init__(self, knowledge: Knowledge, **kwargs: Any):
+    def __init__(self, knowledge: Knowledge, clock, **kwargs: Any):
         super().__init__(**kwargs)
         self._knowledge = knowledge
         self._all = sorted(knowledge.exams.values(), key=lambda e: (MODALITY_ORDER[e.modality], e.name.lower()))
@@ -62,14 +62,26 @@ class ExamPicker(w.VBox):
         self.scheduled = w.Text(placeholder="YYYY-MM-DD HH:MM (optional)", description="Exam time", style=_DESC,
                                 layout=w.Layout(width="100%"))
         self.scheduled_error = _error_label()
+        self.as_of = w.Text(placeholder="YYYY-MM-DD HH:MM", description="Times as of", style=_DESC,
+                            layout=w.Layout(width="260px"))
+        self.as_of.add_class("ca-as-of")
+        self.as_of_now = w.Button(description="now", tooltip="set 'as of' to this moment",
+                                  layout=w.Layout(width="60px"))
+        self.as_of_source = w.HTML("")
+        self.as_of_source.add_class("ca-as-of-source")
+        self.as_of_error = _error_label()
         self.error = _error_label()
         head = w.HTML('<div class="ca-group-head">Exam</div>')
         self.children = [head, self.filter, self.select, self.purpose, self.agent, self.scheduled,
-                         self.scheduled_error, self.error]
+                         self.scheduled_error, w.HBox([self.as_of, self.as_of_now]), self.as_of_source,
+                         self.as_of_error, self.error]
         self.filter.observe(self._on_filter, "value")
         self.select.observe(self._on_select, "value")
         self.agent.observe(self._on_agent, "value")
         self.scheduled.observe(self._on_agent, "value")
+        self.as_of.observe(self._on_as_of, "value")
+        self.as_of_now.on_click(lambda b: self.set_as_of(None))
+        self._clock = clock
         if self._all:
             default = knowledge.exams.get("ct-abdomen-pelvis") or next((e for e in self._all if e.roles), self._all[0])
             self.select.value = default.id
@@ -130,8 +142,28 @@ class ExamPicker(w.VBox):
     def _on_agent(self, change: dict) -> None:
         self.revision += 1
 
+    def _on_as_of(self, change: dict) -> None:
+        if not self._setting_as_of:
+            self.as_of_source.value = "<span class='ca-hint'>'now' as typed here</span>"
+        self.revision += 1
+
+    _setting_as_of = False
+
+    def set_as_of(self, text: str | None, source: str = "") -> None:
+        """Set the 'now' times are worked out for: ``text`` (from a link), or the page's clock when None."""
+        if text is None:
+            text, source = self._clock().strftime("%Y-%m-%d %H:%M"), "this page's clock"
+        self._setting_as_of = True
+        try:
+            self.as_of.value = text.replace("T", " ")[:16]
+        finally:
+            self._setting_as_of = False
+        self.as_of_source.value = (f"<span class='ca-hint'>Clock times and the time left are worked out for "
+                                   f"this 'now' ({source}).</span>")
+
     def show_problems(self, problems: dict[str, list[str]]) -> None:
         _set_error(self.scheduled_error, problems.get("scheduled_at", []))
+        _set_error(self.as_of_error, problems.get("as_of", []))
         _set_error(self.error, problems.get("exam", []) + problems.get("agent", []))
 
     def case_part(self) -> dict[str, Any]:
@@ -141,6 +173,9 @@ class ExamPicker(w.VBox):
         when = self.scheduled.value.strip()
         if when:
             out["scheduled_at"] = when.replace(" ", "T", 1) if len(when) > 10 else when
+        now = self.as_of.value.strip()
+        if now:
+            out["as_of"] = now.replace(" ", "T", 1) if len(now) > 10 else now
         return out
 
     def set_exam(self, exam_id: str) -> str | None:

@@ -7,8 +7,8 @@ from typing import Any
 
 import ipywidgets as w
 
-from knowledge.loader import Knowledge
-from knowledge.report import data_uri, knowledge_tables
+from knowledge.tables.loader import Knowledge
+from knowledge.present.report import data_uri, knowledge_tables
 
 
 class ProtocolNote(w.VBox):

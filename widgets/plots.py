@@ -16,11 +16,11 @@ from typing import Any
 import html
 import ipywidgets as w
 
-from knowledge import models as m
+from knowledge.tables import models as m
 from knowledge.calculators.kidney import KDIGO_CATEGORIES
-from knowledge.loader import Knowledge
-from knowledge.report import TimelineItem, volumes_by_strength
-from knowledge.whatif import WhatIf
+from knowledge.tables.loader import Knowledge
+from knowledge.present.report import TimelineItem, volumes_by_strength
+from knowledge.present.whatif import WhatIf
 
 from .style import BAND_COLOUR, BAND_TEXT, TIMELINE_COLOUR, VERDICT_MARK
 

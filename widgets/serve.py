@@ -112,7 +112,7 @@ def check_policy(policy: str | os.PathLike | None) -> str | None:
     if not policy:
         return None
     from knowledge.errors import KnowledgeError
-    from knowledge.loader import load_policy
+    from knowledge.tables.loader import load_policy
 
     try:
         load_policy(policy)

@@ -7,7 +7,7 @@ never the only cue.
 
 from __future__ import annotations
 
-from knowledge import models as m
+from knowledge.tables import models as m
 
 #: verdict -> (glyph, colour, words)
 VERDICT_MARK: dict[m.Verdict, tuple[str, str, str]] = {

@@ -15,7 +15,6 @@ import datetime as dt
 from dataclasses import dataclass, field
 from typing import Any
 
-from ..errors import RangeError
 from .freshness import align_times
 
 #: Hours after contrast before kidney function is re-checked and metformin restarted (ACR Manual, ESUR v10).
@@ -84,13 +83,16 @@ def premedication_schedule(elective: Any, accelerated: Any, exam_at: dt.datetime
     accelerated one, with a warning (and a second warning when even that one's minimum is not left — then
     the doses that still fit are shown and the exam may need to move). With no exam time, the elective
     regimen is shown as hours before the exam; with an exam time already past, the elective regimen is
-    laid out against it with a warning (never an error, so old cases can be re-opened).
+    laid out against it with a warning (never an error, so old cases can be re-opened). With no ``now``
+(the case gave no as-of time) the elective regimen is laid out against the exam time, with a warning.
     """
     if exam_at is None:
         return Schedule(elective, None, lay_out(elective, None, None),
                         ["No scheduled exam time: doses are given as hours before the exam"])
     if now is None:
-        raise RangeError("as_of: None is not allowed; allowed: the current date-time", field="as_of")
+        return Schedule(elective, None, lay_out(elective, exam_at, None),
+                        ["No as-of time given: the time left before the exam was not checked; the elective "
+                         "regimen is laid out against the exam time"])
     lead = hours_between(now, exam_at)
     if lead < 0:
         return Schedule(elective, lead, lay_out(elective, exam_at, None),

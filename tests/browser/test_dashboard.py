@@ -171,7 +171,8 @@ def test_ct_angiography_plan_with_times_dose_and_plots(page, voila_server):
     # Invented patient. Prior moderate allergic-like reaction -> premedication (ACR Manual elective 13-hour
     # prednisone regimen: 50 mg at 13, 7 and 1 h before); exam at 09:00 -> first dose at 20:00 the evening
     # before. 4 mL/s through a hand vein: the ACR Manual limits hand/wrist veins to 1.5 mL/s.
-    query = {"exam": "ct-angiography-aorta", "at": "2026-12-02T09:00", "creatinine": "1.9", "unit": "mg/dL",
+    query = {"exam": "ct-angiography-aorta", "at": "2026-12-02T09:00", "asof": "2026-12-01T15:00",
+             "creatinine": "1.9", "unit": "mg/dL",
              "age": "64", "sex": "male", "weight": "82", "height": "178", "metformin": "1",
              "iv_gauge": "22", "iv_site": "hand_or_wrist", "reaction": "iodinated:allergic_like:moderate"}
     open_dashboard(page, voila_server, query)

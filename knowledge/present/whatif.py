@@ -13,10 +13,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any
 
-from . import models as m
-from .calculators.kidney import KDIGO_CATEGORIES
-from .engine import parse_case
-from .loader import Knowledge
+from ..tables import models as m
+from ..calculators.kidney import KDIGO_CATEGORIES
+from ..decision.engine import parse_case
+from ..decision.engine import decide
+from ..tables.loader import Knowledge
 
 EGFR_FACTS = ("renal.egfr", "patient.egfr")
 SWEEP_RANGE = (5.0, 120.0)
@@ -97,7 +98,7 @@ def egfr_sweep(case: m.Case | dict[str, Any], knowledge: Knowledge,
     case = parse_case(case)
     exam = knowledge.exams.get(case.exam)
     if exam is None:
-        knowledge.decide(case)  # raises the usual CaseError naming the exam
+        decide(case, knowledge)  # raises the usual CaseError naming the exam
     idx = _role_index(exam)
     if idx is None:
         return WhatIf(None, "", (), note=f"{exam.name} has no intravascular contrast, so eGFR does not change the choice")
@@ -106,7 +107,7 @@ def egfr_sweep(case: m.Case | dict[str, Any], knowledge: Knowledge,
     samples: list[tuple[float, m.Option, bool]] = []
     for x in _probe_points(knowledge, low, high):
         patient = m.Patient.model_validate({**base_patient, "egfr": x})
-        decision = knowledge.decide(case.model_copy(update={"patient": patient}))
+        decision = decide(case.model_copy(update={"patient": patient}), knowledge)
         opt = next(o for o in decision.roles[idx].options if o.chosen)
         samples.append((x, opt, decision.renal.hydration_indicated))
     cuts = breakpoints(knowledge, low, high)

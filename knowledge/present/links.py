@@ -2,10 +2,10 @@
 
 The dashboard is opened with a query such as
 ``exam=ct-abdomen-pelvis&creatinine=1.4&unit=mg/dL&age=60&sex=male`` and prefills the case from it.
-Only the clinical factors of :class:`knowledge.models.Patient` travel; the case model has no field for a
+Only the clinical factors of :class:`knowledge.tables.models.Patient` travel; the case model has no field for a
 name, a record number or a date of birth, and unknown keys (for example those Voila adds) are ignored.
 
-Values are passed on as given (strings); :func:`knowledge.engine.parse_case` validates them and names
+Values are passed on as given (strings); :func:`knowledge.decision.engine.parse_case` validates them and names
 the field of any bad value, so a link can never crash the dashboard.
 """
 
@@ -14,7 +14,7 @@ from __future__ import annotations
 from typing import Any
 from urllib.parse import parse_qsl, urlencode
 
-from . import models as m
+from ..tables import models as m
 
 #: short query key -> Patient field, for the scalar (number or choice) fields
 SCALARS: dict[str, str] = {
@@ -63,7 +63,8 @@ def _flag(value: str) -> bool | str:
 def case_from_query(query: str) -> dict[str, Any]:
     """A case dict (for ``parse_case``) from a URL query string; unknown keys are ignored.
 
-    Keys: ``exam``, ``agent``, ``at`` (the exam's date-time), ``creatinine`` with ``unit`` (``mg/dL``
+    Keys: ``exam``, ``agent``, ``at`` (the exam's date-time), ``asof`` (the "now" the link was made for),
+    ``creatinine`` with ``unit`` (``mg/dL``
     default, or ``umol/L``) and ``measured`` (the sample's date),
     the short keys of :data:`SCALARS` and :data:`FLAGS`, ``iv_gauge`` with ``iv_site``, and
     ``reaction=FAMILY:KIND:SEVERITY[:AGENT]`` (repeatable) for prior reactions.
@@ -91,6 +92,8 @@ def case_from_query(query: str) -> dict[str, Any]:
         case["agent"] = values["agent"].strip()
     if values.get("at", "").strip():  # the exam's date-time: not an identifier
         case["scheduled_at"] = values["at"].strip()
+    if values.get("asof", "").strip():  # the "now" the link was made for
+        case["as_of"] = values["asof"].strip()
     if values.get("creatinine", "").strip():
         unit = values.get("unit", "mg/dL").strip() or "mg/dL"
         unit = {"umol/l": "umol/L", "µmol/l": "umol/L", "mg/dl": "mg/dL"}.get(unit.lower(), unit)
@@ -135,6 +138,8 @@ def query_from_case(case: m.Case | dict[str, Any]) -> str:
         pairs.append(("agent", str(case["agent"])))
     if case.get("scheduled_at"):
         pairs.append(("at", str(case["scheduled_at"])[:16]))
+    if case.get("as_of"):
+        pairs.append(("asof", str(case["as_of"])[:16]))
     p = case.get("patient") or {}
     cr = p.get("creatinine")
     if cr:

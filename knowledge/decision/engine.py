@@ -14,12 +14,12 @@ from typing import Any
 
 from pydantic import ValidationError
 
-from . import models as m
-from .calculators import kidney
-from .errors import CaseError, ContrastAidError
-from .loader import Knowledge, exam_facts, load_knowledge
+from ..tables import models as m
+from ..calculators import kidney
+from ..errors import CaseError, ContrastAidError
+from ..tables.loader import Knowledge, exam_facts
 from .plans import add_plans
-from .validation import describe
+from ..tables.validation import describe
 
 DECISION_SUPPORT = (
     "Decision support only: the supervising radiologist, local policy and licensed practice decide."
@@ -108,9 +108,9 @@ def _history_facts(reactions: list[m.PriorReaction], agent: m.Agent) -> dict[str
     }
 
 
-def decide(case: Any, knowledge: Knowledge | None = None) -> m.Decision:
+def decide(case: Any, knowledge: Knowledge) -> m.Decision:
     """Decide the contrast options for ``case`` (a dict or :class:`Case`). Raises ContrastAidError."""
-    k = knowledge or load_knowledge()
+    k = knowledge
     case = parse_case(case)
     exam = k.exams.get(case.exam)
     if exam is None:
@@ -235,6 +235,7 @@ def decide(case: Any, knowledge: Knowledge | None = None) -> m.Decision:
         cautions=cautions,
         policy=pol.id,
         knowledge_version=k.version,
+        as_of=case.as_of,
     )
     # numbers and clock times for the precautions: dose, renal limits, premedication, metformin (plans.py)
     return add_plans(case, k, decision)

@@ -7,13 +7,15 @@ field, the value given and what is allowed; there is never a traceback for bad i
 from __future__ import annotations
 
 import argparse
+import datetime as dt
 import json
 import sys
 from pathlib import Path
 from typing import Any, Sequence
 
-from . import models as m
-from .errors import CaseError, ContrastAidError
+from ..tables import models as m
+from ..errors import CaseError, ContrastAidError
+from .dose import add_dose_parser
 
 EXIT_BAD_INPUT = 2
 
@@ -27,7 +29,7 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _knowledge(args: argparse.Namespace):
-    from .loader import load_knowledge
+    from ..tables.loader import load_knowledge
 
     return load_knowledge(getattr(args, "data", None), getattr(args, "policy", None))
 
@@ -53,10 +55,34 @@ def _print_json(data: Any) -> None:
 
 
 # ----------------------------------------------------------------------------- subcommands
+def wall_clock() -> dt.datetime:
+    """The machine's local time to the minute: the command line's "now" when a case gives no as_of."""
+    return dt.datetime.now().replace(second=0, microsecond=0)
+
+
+def parse_as_of(text: str) -> dt.datetime:
+    """``--as-of`` as an ISO 8601 date-time. Raises CaseError naming the flag."""
+    try:
+        return dt.datetime.fromisoformat(text.strip())
+    except ValueError:
+        raise CaseError(f"--as-of: {text[:60]!r} is not a date-time; allowed: an ISO 8601 date-time such as "
+                        "2026-12-01T15:00", field="--as-of") from None
+
+
+def with_as_of(case: Any, args: argparse.Namespace) -> Any:
+    """The case with its "now" set: the case's own ``as_of``, else ``--as-of``, else the wall clock."""
+    given = parse_as_of(args.as_of) if getattr(args, "as_of", None) else None
+    if isinstance(case, dict) and case.get("as_of") is None:
+        case = {**case, "as_of": (given or args.clock()).isoformat()}
+    return case
+
+
 def cmd_decide(args: argparse.Namespace) -> int:
+    from ..decision.engine import decide
+
     k = _knowledge(args)
-    case = read_case_file(args.case)
-    decision = k.decide(case)
+    case = with_as_of(read_case_file(args.case), args)
+    decision = decide(case, k)
     _print_json(decision.model_dump(mode="json"))
     return 0
 
@@ -126,7 +152,7 @@ def _flag_message(message: str) -> str:
 
 
 def cmd_egfr(args: argparse.Namespace) -> int:
-    from .engine import parse_case, renal_block
+    from ..decision.engine import parse_case, renal_block
 
     patient: dict[str, Any] = {
         "age_years": args.age,
@@ -174,7 +200,7 @@ def cmd_knowledge_schema(args: argparse.Namespace) -> int:
 
 
 def cmd_knowledge_facts(args: argparse.Namespace) -> int:
-    from .facts import catalogue_rows
+    from ..tables.facts import catalogue_rows
 
     for row in catalogue_rows():
         values = f" [{row['values']}]" if row["values"] else ""
@@ -199,6 +225,9 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = with_policy(sub.add_parser("decide", help="decide the contrast options for a case (JSON on stdout)"))
     p.add_argument("case", metavar="CASE.json", help="the case file, or - for stdin")
+    p.add_argument("--as-of", dest="as_of", metavar="T",
+                   help="the time to decide for (ISO 8601, e.g. 2026-12-01T15:00); default: the case's as_of, "
+                        "else this machine's clock. The decision's as_of says which was used")
     p.set_defaults(func=cmd_decide)
 
     p = sub.add_parser("exams", help="list the exams")
@@ -233,18 +262,15 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--port", type=int, default=8866, metavar="N")
     p.set_defaults(func=cmd_serve)
 
-    try:  # the dose subcommand lives with the dose calculators
-        from .plans import add_dose_parser
-    except ImportError:
-        pass
-    else:
-        add_dose_parser(sub)
+    add_dose_parser(sub)
     return parser
 
 
-def main(argv: Sequence[str] | None = None) -> int:
+def main(argv: Sequence[str] | None = None, clock=wall_clock) -> int:
+    """Run the command line. ``clock`` gives "now" where a case has none (tests pass a fixed one)."""
     parser = build_parser()
     args = parser.parse_args(argv)
+    args.clock = clock
     try:
         return args.func(args)
     except ContrastAidError as exc:

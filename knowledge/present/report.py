@@ -16,9 +16,9 @@ import html
 from dataclasses import dataclass
 from typing import Any
 
-from . import models as m
-from .engine import DECISION_SUPPORT
-from .loader import Knowledge
+from ..tables import models as m
+from ..decision.engine import DECISION_SUPPORT
+from ..tables.loader import Knowledge
 
 #: ACR Manual on Contrast Media, metformin: withhold for 48 h after contrast when indicated (the
 #: engine's advice text says the same).

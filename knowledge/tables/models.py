@@ -297,7 +297,7 @@ Operand = Union[PolicyValue, Scalar]
 class Test(Strict):
     """One comparison of a named fact. Exactly one operator is given."""
 
-    fact: str = Field(description="A fact name from the fact catalogue (see knowledge/facts.py)")
+    fact: str = Field(description="A fact name from the fact catalogue (see knowledge/tables/facts.py)")
     is_: Scalar | PolicyValue = Field(None, alias="is", description="Equal to")
     is_not: Scalar | PolicyValue = Field(None, description="Not equal to")
     in_: list[Scalar] | None = Field(None, alias="in", description="One of")
@@ -536,7 +536,9 @@ class Case(Strict):
     exam: str = Field(description="Exam id from the exams table")
     patient: Patient = Field(default_factory=Patient, description="Patient factors")
     scheduled_at: dt.datetime | None = Field(None, description="Exam date-time (ISO 8601, local)")
-    as_of: dt.datetime | None = Field(None, description="The current time for 'time left' (default now)")
+    as_of: dt.datetime | None = Field(
+        None, description="The time the decision is made for ('now'), for the time left before the exam and the "
+                          "creatinine's age; the command line and the dashboard fill it in, the core never reads a clock")
     agent: str | None = Field(None, description="A requested agent id to plan for")
     planned_flow_ml_s: float | None = Field(None, description="Override of the protocol flow, mL/s", gt=0, le=10)
     planned_volume_ml: float | None = Field(None, description="Override of the protocol volume, mL", gt=0, le=300)
@@ -582,7 +584,7 @@ class Viscosity(Strict):
 
 
 class DoseBlock(Strict):
-    """The worked dose of an intravascular iodinated role (``knowledge/plans.py``). Case overrides
+    """The worked dose of an intravascular iodinated role (``knowledge/decision/plans.py``). Case overrides
     (``planned_volume_ml``, ``planned_flow_ml_s``) apply to the exam's first intravascular role."""
 
     agent: str = Field(description="Id of the chosen agent the dose is for")
@@ -702,3 +704,4 @@ class Decision(Strict):
     cautions: list[str]
     policy: str
     knowledge_version: str
+    as_of: dt.datetime | None = Field(None, description="The 'now' the times were worked out for (the case's as_of)")

@@ -1,6 +1,6 @@
 """What the case form shows beside each input: the unit and the valid range, read from the models.
 
-The ranges come from the field constraints of :class:`knowledge.models.Patient` and from the
+The ranges come from the field constraints of :class:`knowledge.tables.models.Patient` and from the
 calculators' validity ranges, so the form and the validation can never disagree.
 """
 
@@ -9,8 +9,8 @@ from __future__ import annotations
 import annotated_types as at
 from pydantic import BaseModel
 
-from . import models as m
-from .calculators import kidney
+from ..tables import models as m
+from ..calculators import kidney
 
 
 def field_range(model: type[BaseModel], name: str) -> tuple[float | None, float | None]:
@@ -76,13 +76,13 @@ def hint(name: str) -> str:
 def case_problems(data: dict) -> list[tuple[str, str]]:
     """Every validation problem of a case dict as (field, one-line message), for showing beside each input.
 
-    The messages are those of :func:`knowledge.engine.parse_case` (same wording), but all of them, not
+    The messages are those of :func:`knowledge.decision.engine.parse_case` (same wording), but all of them, not
     just the first. An empty list means the case is well formed (the engine may still find, say, an
     unknown exam or a creatinine outside the equation's range; it raises CaseError naming the field).
     """
     from pydantic import ValidationError
 
-    from .validation import problems
+    from ..tables.validation import problems
 
     try:
         m.Case.model_validate(data)

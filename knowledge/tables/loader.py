@@ -18,10 +18,10 @@ from pydantic import ValidationError
 
 from . import models as m
 from .conditions import Compiled, compile_condition, compile_partial
-from .errors import KnowledgeError
+from ..errors import KnowledgeError
 from .validation import describe
 
-DATA_DIR = Path(__file__).parent / "data"
+DATA_DIR = Path(__file__).resolve().parent.parent / "data"
 #: libyaml's C loader when PyYAML was built with it (same safe subset, several times faster)
 _YAML_LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 DEFAULT_POLICY = DATA_DIR / "policies" / "default.yaml"
@@ -56,11 +56,6 @@ class Knowledge:
     agent_rules: list[CompiledRule] = field(default_factory=list)
     case_rules: list[CompiledRule] = field(default_factory=list)
     regimens: dict[str, m.Regimen] = field(default_factory=dict)
-
-    def decide(self, case: Any) -> m.Decision:
-        from .engine import decide
-
-        return decide(case, self)
 
     def cite(self, refs: list[m.SourceRef], certainty: m.Certainty) -> str:
         """Sources as shown to users: 'title, issuer year, section; ...' or the certainty words."""
@@ -183,7 +178,7 @@ def load_knowledge(data_dir: Path | str | None = None, policy: Path | str | None
 
 
 def exam_facts(exam: m.Exam, policy: m.Policy) -> dict[str, Any]:
-    """The facts fixed by the exam and the policy (see knowledge/facts.py)."""
+    """The facts fixed by the exam and the policy (see knowledge/tables/facts.py)."""
     return {
         "exam.id": exam.id,
         "exam.modality": exam.modality.value,
@@ -195,7 +190,7 @@ def exam_facts(exam: m.Exam, policy: m.Policy) -> dict[str, Any]:
 
 
 def static_facts(exam: m.Exam, role: m.ExamRole, agent: m.Agent, policy: m.Policy) -> dict[str, Any]:
-    """The facts fixed by the exam, role, agent and policy (see knowledge/facts.py)."""
+    """The facts fixed by the exam, role, agent and policy (see knowledge/tables/facts.py)."""
     return {
         **exam_facts(exam, policy),
         "role.route": role.route.value,

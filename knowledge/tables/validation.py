@@ -7,7 +7,7 @@ from typing import Any
 
 from pydantic import BaseModel, ValidationError
 
-from .errors import show
+from ..errors import show
 
 
 def _model_at(model: type[BaseModel], loc: tuple) -> type[BaseModel] | None:

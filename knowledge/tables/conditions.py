@@ -1,6 +1,6 @@
 """Compile and check rule conditions.
 
-A condition is data (see :class:`knowledge.models.Test`, ``All``, ``AnyOf``, ``Not``). At load it is
+A condition is data (see :class:`knowledge.tables.models.Test`, ``All``, ``AnyOf``, ``Not``). At load it is
 checked against the fact catalogue and the policy, then turned into a plain Python closure over a
 dict of facts. Nothing is ever ``eval``'d.
 """
@@ -10,7 +10,7 @@ from __future__ import annotations
 from typing import Any, Callable
 
 from . import models as m
-from .errors import KnowledgeError
+from ..errors import KnowledgeError
 from .facts import FACTS
 
 Facts = dict[str, Any]
