@@ -1,4 +1,4 @@
-"""The rule engine: ``decide(case) -> Decision``, pure and deterministic.
+"""The rule engine: ``decide(case, knowledge) -> Decision``, pure and deterministic.
 
 For each role of the exam every catalogue agent that could physically be given by the role's route
 (``routes.yaml``) is tested against every agent-scope rule. An agent's verdict is the most restrictive
@@ -10,6 +10,7 @@ raises the decision-level flags of its rules: hydration, premedication, metformi
 from __future__ import annotations
 
 import difflib
+from dataclasses import dataclass, field
 from typing import Any
 
 from pydantic import ValidationError
@@ -108,10 +109,50 @@ def _history_facts(reactions: list[m.PriorReaction], agent: m.Agent) -> dict[str
     }
 
 
+@dataclass
+class _Raised:
+    """What the options in the plan raise for the whole decision (flags, cautions)."""
+
+    flags: set = field(default_factory=set)
+    cautions: list = field(default_factory=lambda: [DECISION_SUPPORT])
+    systemic_iodinated: bool = False
+
+    def caution(self, text: str) -> None:
+        if text not in self.cautions:
+            self.cautions.append(text)
+
+
+@dataclass(frozen=True)
+class _Scored:
+    order: tuple
+    agent: m.Agent
+    verdict: m.Verdict
+    reasons: list
+    actions: list
+    flags: set
+    lifted: list
+
+
 def decide(case: Any, knowledge: Knowledge) -> m.Decision:
-    """Decide the contrast options for ``case`` (a dict or :class:`Case`). Raises ContrastAidError."""
+    """Decide the contrast options for ``case`` (a dict or :class:`Case`). Raises ContrastAidError.
+
+    The pipeline: check references → kidney → facts → score each role → raise flags → case rules →
+    assemble → plans (``knowledge.decision.plans``). Each stage is a function below.
+    """
     k = knowledge
     case = parse_case(case)
+    exam = check_references(case, k)
+    kidney_function = kidney_stage(case.patient)
+    base = case_facts(case, kidney_function[0], kidney_function[2])
+    raised = _Raised()
+    roles = [score_role(case, k, exam, index, role, base, raised) for index, role in enumerate(exam.roles)]
+    apply_case_rules(k, exam, base, raised)
+    decision = assemble(case, k, exam, roles, kidney_function, raised)
+    return add_plans(case, k, decision)
+
+
+def check_references(case: m.Case, k: Knowledge) -> m.Exam:
+    """The exam, the requested agent and every culprit agent must exist and fit; returns the exam."""
     exam = k.exams.get(case.exam)
     if exam is None:
         near = difflib.get_close_matches(case.exam, list(k.exams), n=3, cutoff=0.5)
@@ -128,114 +169,112 @@ def decide(case: Any, knowledge: Knowledge) -> m.Decision:
             raise CaseError(f"agent: {case.agent!r} cannot be given in any role of {exam.id}; allowed: {allowed}",
                             field="agent")
     for i, r in enumerate(case.patient.prior_reactions):
+        where = f"patient.prior_reactions[{i}].agent"
         if r.agent is not None and r.agent not in k.agents:
-            raise CaseError(
-                f"patient.prior_reactions[{i}].agent: {r.agent!r} is not a known agent; allowed: the ids of `contrast-aid agents`",
-                field=f"patient.prior_reactions[{i}].agent")
+            raise CaseError(f"{where}: {r.agent!r} is not a known agent; allowed: the ids of `contrast-aid agents`",
+                            field=where)
         if r.agent is not None and k.agents[r.agent].family is not r.agent_family:
-            raise CaseError(
-                f"patient.prior_reactions[{i}].agent: {r.agent} is {k.agents[r.agent].family.value}, "
-                f"not {r.agent_family.value}; allowed: an agent of the family given",
-                field=f"patient.prior_reactions[{i}].agent")
+            raise CaseError(f"{where}: {r.agent} is {k.agents[r.agent].family.value}, not "
+                            f"{r.agent_family.value}; allowed: an agent of the family given", field=where)
+    return exam
+
+
+def kidney_stage(patient: m.Patient) -> tuple[float | None, str | None, str | None, str | None]:
+    """eGFR, equation, KDIGO category and note (:func:`renal_block`), errors named by the case field."""
     try:
-        egfr, equation, category, note = renal_block(case.patient)
+        return renal_block(patient)
     except ContrastAidError as exc:
         raise CaseError(f"patient.{exc.message}", field=f"patient.{exc.field}") from None
 
-    base = case_facts(case, egfr, category)
+
+def score_agent(k: Knowledge, agent: m.Agent, facts: dict[str, Any], rules: list, pref: dict) -> _Scored:
+    """Test every candidate rule for one agent: its verdict (most restrictive wins), reasons, actions, flags."""
+    reasons, actions, flags, lifted = [], [], set(), []
+    verdict = m.Verdict.suitable
+    for cr in rules:
+        if not cr.test(facts):
+            continue
+        eff = cr.rule.effect
+        if eff.verdict is not None and eff.verdict.severity > verdict.severity:
+            verdict = eff.verdict
+        reasons.append(m.Reason.model_construct(rule=cr.rule.id, text=cr.text, verdict=eff.verdict,
+                                                source=cr.source_text, certainty=cr.rule.certainty))
+        actions.extend(a for a in cr.actions if a not in actions)
+        flags.update(eff.flags)
+        if eff.caution:
+            lifted.append(cr.text)
+    order = (verdict.severity, pref.get(agent.id, len(pref)))
+    return _Scored(order, agent, verdict, reasons, actions, flags, lifted)
+
+
+def score_role(case: m.Case, k: Knowledge, exam: m.Exam, index: int, role: m.ExamRole,
+               base: dict[str, Any], raised: _Raised) -> m.RoleDecision:
+    """Score and rank every agent the role's route allows; the options in the plan raise their flags."""
+    pref = {aid: i for i, aid in enumerate(role.agents)}
     reactions = case.patient.prior_reactions
-    flags: set[m.Flag] = set()
-    cautions: list[str] = [DECISION_SUPPORT]
-    roles: list[m.RoleDecision] = []
-    systemic_iodinated = False
+    scored = []
+    for agent, static, candidate_rules in k.candidates[(exam.id, index)]:
+        facts = {**base, **static}
+        if reactions:
+            facts.update(_history_facts(reactions, agent))
+        scored.append(score_agent(k, agent, facts, candidate_rules, pref))
+    scored.sort(key=lambda s: s.order)
+    chosen_id = case.agent if case.agent in {s.agent.id for s in scored} else scored[0].agent.id
+    options = []
+    for rank, s in enumerate(scored, start=1):
+        chosen = s.agent.id == chosen_id
+        # With no agent requested, every usual agent still open to the radiologist (suitable, with or
+        # without precautions) raises its flags too, so choosing carbon dioxide first never hides the
+        # hydration an iodinated alternative would need. A requested agent raises only its own.
+        if chosen or (case.agent is None and s.agent.id in pref
+                      and s.verdict.severity <= m.Verdict.suitable_with_precautions.severity):
+            raise_flags(raised, s, role)
+        a = s.agent
+        options.append(m.Option.model_construct(
+            agent=a.id, name=a.name, agent_class=a.agent_class, family=a.family,
+            osmolality_class=a.osmolality_class, verdict=s.verdict, rank=rank, chosen=chosen,
+            reasons=s.reasons, actions=s.actions))
+    return m.RoleDecision(route=role.route, purpose=role.purpose, required=role.required, options=options)
 
-    for index, role in enumerate(exam.roles):
-        pref = {aid: i for i, aid in enumerate(role.agents)}
-        scored = []
-        for agent, static, candidate_rules in k.candidates[(exam.id, index)]:
-            facts = {**base, **static}
-            if reactions:
-                facts.update(_history_facts(reactions, agent))
-            reasons, actions, rule_flags, lifted = [], [], set(), []
-            verdict = m.Verdict.suitable
-            for cr in candidate_rules:
-                if not cr.test(facts):
-                    continue
-                rule = cr.rule
-                eff = rule.effect
-                if eff.verdict is not None and eff.verdict.severity > verdict.severity:
-                    verdict = eff.verdict
-                reasons.append(m.Reason.model_construct(rule=rule.id, text=cr.text, verdict=eff.verdict,
-                                        source=cr.source_text, certainty=rule.certainty))
-                for act in cr.actions:
-                    if act not in actions:
-                        actions.append(act)
-                rule_flags.update(eff.flags)
-                if eff.caution:
-                    lifted.append(cr.text)
-            order = (verdict.severity, pref.get(agent.id, len(pref)))
-            scored.append((order, agent, verdict, reasons, actions, rule_flags, lifted))
-        scored.sort(key=lambda s: s[0])
-        chosen_id = case.agent if case.agent in {s[1].id for s in scored} else scored[0][1].id
-        options = []
-        for rank, (_, agent, verdict, reasons, actions, rule_flags, lifted) in enumerate(scored, start=1):
-            chosen = agent.id == chosen_id
-            # With no agent requested, every usual agent still open to the radiologist (suitable, with or
-            # without precautions) raises its flags too, so choosing carbon dioxide first never hides the
-            # hydration an iodinated alternative would need. A requested agent raises only its own.
-            in_plan = chosen or (case.agent is None and agent.id in pref
-                                 and verdict.severity <= m.Verdict.suitable_with_precautions.severity)
-            if in_plan:
-                flags |= rule_flags
-                systemic_iodinated |= agent.family is m.Family.iodinated and role.route in _SYSTEMIC
-                for text in lifted:
-                    if text not in cautions:
-                        cautions.append(text)
-            options.append(m.Option.model_construct(
-                agent=agent.id, name=agent.name, agent_class=agent.agent_class, family=agent.family,
-                osmolality_class=agent.osmolality_class, verdict=verdict, rank=rank, chosen=chosen,
-                reasons=reasons, actions=actions))
-        roles.append(m.RoleDecision(route=role.route, purpose=role.purpose, required=role.required,
-                                    options=options))
 
+def raise_flags(raised: _Raised, s: _Scored, role: m.ExamRole) -> None:
+    """An option in the plan raises its rules' flags and cautions for the whole decision."""
+    raised.flags |= s.flags
+    raised.systemic_iodinated |= s.agent.family is m.Family.iodinated and role.route in _SYSTEMIC
+    for text in s.lifted:
+        raised.caution(text)
+
+
+def apply_case_rules(k: Knowledge, exam: m.Exam, base: dict[str, Any], raised: _Raised) -> None:
+    """Case-scope rules add cautions and flags once per decision; readiness closes the list."""
     case_level = {**base, **exam_facts(exam, k.policy)}
     for cr in k.case_rules:
         if cr.test(case_level):
-            if cr.text not in cautions:
-                cautions.append(cr.text)
-            flags.update(cr.rule.effect.flags)
-    if m.Flag.reaction_readiness in flags or systemic_iodinated:
-        cautions.append(READINESS)
+            raised.caution(cr.text)
+            raised.flags.update(cr.rule.effect.flags)
+    if m.Flag.reaction_readiness in raised.flags or raised.systemic_iodinated:
+        raised.cautions.append(READINESS)
 
+
+def assemble(case: m.Case, k: Knowledge, exam: m.Exam, roles: list[m.RoleDecision],
+             kidney_function: tuple, raised: _Raised) -> m.Decision:
+    """The decision before plans: roles, the renal, premedication and metformin blocks, cautions."""
+    egfr, equation, category, note = kidney_function
     pol = k.policy
-    hydrate = m.Flag.hydration_indicated in flags
-    premed = m.Flag.premedication_indicated in flags
-    metformin_hold = m.Flag.metformin_hold in flags and case.patient.takes_metformin
-    if case.patient.takes_metformin:
+    hydrate = m.Flag.hydration_indicated in raised.flags
+    premed = m.Flag.premedication_indicated in raised.flags
+    takes = case.patient.takes_metformin
+    hold = m.Flag.metformin_hold in raised.flags and takes
+    advice = None
+    if takes:
         advice = ("Withhold metformin from the time of contrast for 48 h; restart only after kidney function "
-                  "is re-checked" if metformin_hold else "Continue metformin")
-    else:
-        advice = None
-    decision = m.Decision(
-        exam=exam.id,
-        exam_name=exam.name,
-        contrast_needed=any(r.required for r in exam.roles),
-        contrast=exam.contrast,
-        roles=roles,
-        renal=m.RenalBlock(
-            egfr=round(egfr, 1) if egfr is not None else None,
-            equation=equation,
-            category=category,
-            hydration_indicated=hydrate,
-            hydration_regimen=pol.hydration_regimen if hydrate else None,
-            note=note,
-        ),
+                  "is re-checked" if hold else "Continue metformin")
+    return m.Decision(
+        exam=exam.id, exam_name=exam.name, contrast_needed=any(r.required for r in exam.roles),
+        contrast=exam.contrast, roles=roles,
+        renal=m.RenalBlock(egfr=round(egfr, 1) if egfr is not None else None, equation=equation,
+                           category=category, hydration_indicated=hydrate,
+                           hydration_regimen=pol.hydration_regimen if hydrate else None, note=note),
         premedication=m.PremedicationBlock(indicated=premed, regimen=pol.premedication_regimen if premed else None),
-        metformin=m.MetforminBlock(hold=metformin_hold, takes_metformin=case.patient.takes_metformin, advice=advice),
-        cautions=cautions,
-        policy=pol.id,
-        knowledge_version=k.version,
-        as_of=case.as_of,
-    )
-    # numbers and clock times for the precautions: dose, renal limits, premedication, metformin (plans.py)
-    return add_plans(case, k, decision)
+        metformin=m.MetforminBlock(hold=hold, takes_metformin=takes, advice=advice),
+        cautions=raised.cautions, policy=pol.id, knowledge_version=k.version, as_of=case.as_of)

@@ -27,7 +27,7 @@ from typing import Any
 
 from ..tables import models as m
 from ..calculators import access as access_calc
-from ..calculators import body, dose as dose_calc, freshness, hydration, kidney, limits, timeline
+from ..calculators import body, dose as dose_calc, freshness, hydration, kidney, limits, timeline, viscosity
 from ..errors import CaseError, ContrastAidError, RangeError
 
 #: Hours after contrast at which kidney function is re-checked before metformin is restarted.
@@ -58,6 +58,11 @@ def mg_i_strengths(agent: m.Agent) -> list[m.Concentration]:
     return [c for c in agent.concentrations if c.unit is m.Unit.mg_i_per_ml and lo <= c.value <= hi]
 
 
+#: a strength this viscous at 37 °C, injected this fast, is warmed first (viscosity warning thresholds)
+VISCOUS_MPAS_37C = 8.0
+VISCOUS_FLOW_ML_S = 3.0
+
+
 def dose_block(agent: m.Agent, protocol: m.DoseProtocol | None, route: m.Route, *, weight_kg: float | None,
                planned_volume_ml: float | None = None, planned_flow_ml_s: float | None = None,
                concentration_mg_i_ml: float | None = None, iv_access: m.IVAccess | None = None,
@@ -72,66 +77,74 @@ def dose_block(agent: m.Agent, protocol: m.DoseProtocol | None, route: m.Route, 
     strengths = mg_i_strengths(agent)
     if not strengths or (protocol is None and planned_volume_ml is None):
         return None
-    values = [c.value for c in strengths]
-    if concentration_mg_i_ml is not None:
-        if concentration_mg_i_ml not in values:
-            raise RangeError(
-                f"{concentration_field}: {concentration_mg_i_ml:g} is not a strength of {agent.id}; allowed: "
-                f"{', '.join(f'{v:g}' for v in values)}", field=concentration_field)
-        conc, choice = float(concentration_mg_i_ml), f"{concentration_mg_i_ml:g} mg I/mL: as requested"
-    else:
-        conc, choice = dose_calc.choose_concentration(values, protocol.concentration_mg_i_ml if protocol else None)
+    conc, choice = pick_strength(agent, strengths, protocol, concentration_mg_i_ml, concentration_field)
     flow = planned_flow_ml_s if planned_flow_ml_s is not None else (protocol.flow_ml_s if protocol else None)
     plan = dose_calc.plan_dose(
-        concentration_mg_i_ml=conc,
-        flow_ml_s=flow,
-        weight_kg=weight_kg,
+        concentration_mg_i_ml=conc, flow_ml_s=flow, weight_kg=weight_kg,
         iodine_g_per_kg=protocol.iodine_g_per_kg if protocol else None,
         fixed_volume_ml=protocol.fixed_volume_ml if protocol else None,
         max_volume_ml=protocol.max_volume_ml if protocol else dose_calc.VOLUME_RANGE[1],
         scan_duration_s=protocol.scan_duration_s if protocol else None,
         duration_offset_s=protocol.duration_offset_s if protocol else 0.0,
-        planned_volume_ml=planned_volume_ml,
-        concentration_choice=choice,
-    )
+        planned_volume_ml=planned_volume_ml, concentration_choice=choice)
     warnings = list(plan.warnings)
-    access_ok = access_msg = None
-    if route is m.Route.intravenous and flow is not None:
-        if iv_access is None:
-            access_msg = "No IV access given: not checked"
-        else:
-            chk = access_calc.check_access(iv_access.gauge, iv_access.site, flow)
-            access_ok, access_msg = chk.ok, chk.message
-            if not chk.ok:
-                warnings.append(f"IV access not fit: {chk.message}")
-    elif route is m.Route.intra_arterial:
-        access_msg = "Arterial catheter: peripheral IV access rules do not apply"
+    access_ok, access_msg = access_check(route, flow, iv_access, warnings)
     rec = next(c for c in strengths if c.value == conc)
-    visc = None
-    if rec.viscosity_mpas_20c is not None or rec.viscosity_mpas_37c is not None:
-        ratio = None
-        if rec.viscosity_mpas_20c is not None and rec.viscosity_mpas_37c is not None:
-            from ..calculators import viscosity
-
-            ratio = round(viscosity.pressure_ratio(rec.viscosity_mpas_20c, rec.viscosity_mpas_37c), 2)
-        src = None
-        if rec.source is not None and cite is not None:
-            src = cite([rec.source], rec.certainty)
-        elif rec.certainty is not m.Certainty.verified:
-            src = "from memory" if rec.certainty is m.Certainty.from_memory else "common practice"
-        visc = m.Viscosity(at_20c=rec.viscosity_mpas_20c, at_37c=rec.viscosity_mpas_37c,
-                           warming_pressure_ratio=ratio, certainty=rec.certainty, source=src)
-        if ratio is not None and rec.viscosity_mpas_37c is not None and rec.viscosity_mpas_37c >= 8 and \
-                flow is not None and flow >= 3:
-            warnings.append(
-                f"Viscous strength ({rec.viscosity_mpas_37c:g} mPa·s at 37 °C): warm to body temperature; the "
-                f"same flow then needs about {ratio:.0%} of the room-temperature pressure (Hagen-Poiseuille)")
+    visc = viscosity_block(rec, flow, cite, warnings)
     return m.DoseBlock(
         agent=agent.id, concentration_mg_i_ml=conc, concentration_choice=plan.concentration_choice,
         volume_ml=_r(plan.volume_ml), volume_basis=plan.volume_basis, iodine_g=_r(plan.iodine_g),
         flow_ml_s=plan.flow_ml_s, iodine_delivery_rate_g_s=_r(plan.iodine_delivery_rate_g_s, 2),
         duration_s=_r(plan.duration_s), access_ok=access_ok, access_message=access_msg,
         viscosity_mpas=visc, warnings=warnings)
+
+
+def pick_strength(agent: m.Agent, strengths: list[m.Concentration], protocol: m.DoseProtocol | None,
+                  requested: float | None, field: str) -> tuple[float, str]:
+    """The strength to plan with and how it was picked (a requested one must be one of the agent's)."""
+    values = [c.value for c in strengths]
+    if requested is None:
+        return dose_calc.choose_concentration(values, protocol.concentration_mg_i_ml if protocol else None)
+    if requested not in values:
+        raise RangeError(f"{field}: {requested:g} is not a strength of {agent.id}; allowed: "
+                         f"{', '.join(f'{v:g}' for v in values)}", field=field)
+    return float(requested), f"{requested:g} mg I/mL: as requested"
+
+
+def access_check(route: m.Route, flow: float | None, iv_access: m.IVAccess | None,
+                 warnings: list[str]) -> tuple[bool | None, str | None]:
+    """Whether the IV catheter fits the flow (ACR Manual wording); arterial catheters are not checked."""
+    if route is m.Route.intra_arterial:
+        return None, "Arterial catheter: peripheral IV access rules do not apply"
+    if route is not m.Route.intravenous or flow is None:
+        return None, None
+    if iv_access is None:
+        return None, "No IV access given: not checked"
+    chk = access_calc.check_access(iv_access.gauge, iv_access.site, flow)
+    if not chk.ok:
+        warnings.append(f"IV access not fit: {chk.message}")
+    return chk.ok, chk.message
+
+
+def viscosity_block(rec: m.Concentration, flow: float | None, cite: Any, warnings: list[str]) -> m.Viscosity | None:
+    """Catalogue viscosity at 20 and 37 °C, the warming pressure ratio, and a warning for viscous fast doses."""
+    if rec.viscosity_mpas_20c is None and rec.viscosity_mpas_37c is None:
+        return None
+    ratio = None
+    if rec.viscosity_mpas_20c is not None and rec.viscosity_mpas_37c is not None:
+        ratio = round(viscosity.pressure_ratio(rec.viscosity_mpas_20c, rec.viscosity_mpas_37c), 2)
+    src = None
+    if rec.source is not None and cite is not None:
+        src = cite([rec.source], rec.certainty)
+    elif rec.certainty is not m.Certainty.verified:
+        src = "from memory" if rec.certainty is m.Certainty.from_memory else "common practice"
+    if ratio is not None and rec.viscosity_mpas_37c >= VISCOUS_MPAS_37C and flow is not None \
+            and flow >= VISCOUS_FLOW_ML_S:
+        warnings.append(
+            f"Viscous strength ({rec.viscosity_mpas_37c:g} mPa·s at 37 °C): warm to body temperature; the "
+            f"same flow then needs about {ratio:.0%} of the room-temperature pressure (Hagen-Poiseuille)")
+    return m.Viscosity(at_20c=rec.viscosity_mpas_20c, at_37c=rec.viscosity_mpas_37c,
+                       warming_pressure_ratio=ratio, certainty=rec.certainty, source=src)
 
 
 # --------------------------------------------------------------------------------------------------
@@ -146,14 +159,19 @@ def add_plans(case: m.Case, knowledge: Any, decision: m.Decision) -> m.Decision:
 
 
 def _add_plans(case: m.Case, k: Any, decision: m.Decision) -> m.Decision:
-    pol: m.Policy = k.policy
-    p = case.patient
     exam = k.exams[decision.exam]
-    now = case.as_of
-    exam_at = case.scheduled_at
-    at = exam_at or now
+    roles, doses, iodinated_intravascular = plan_doses(case, k, exam, decision)
+    renal = plan_renal(case, k, decision.renal, doses, iodinated_intravascular)
+    premed = plan_premedication(case, k, decision.premedication)
+    met = plan_metformin(case, decision.metformin)
+    return decision.model_copy(update=dict(roles=roles, renal=renal, premedication=premed, metformin=met))
 
-    # ---- dose per role --------------------------------------------------------------------------
+
+def plan_doses(case: m.Case, k: Any, exam: m.Exam, decision: m.Decision):
+    """Dose blocks for every intravascular role with an iodinated choice: (roles, doses, any such role).
+
+    The case's planned volume, flow and strength apply to the exam's first intravascular role."""
+    p = case.patient
     new_roles: list[m.RoleDecision] = []
     doses: list[tuple[m.ExamRole, m.DoseBlock]] = []
     iodinated_intravascular = False
@@ -175,18 +193,32 @@ def _add_plans(case: m.Case, k: Any, decision: m.Decision) -> m.Decision:
         if role.route in m.INTRAVASCULAR:
             first_intravascular = False
         new_roles.append(rd.model_copy(update={"dose": block}) if block is not None else rd)
+    return new_roles, doses, iodinated_intravascular
 
-    # ---- renal ----------------------------------------------------------------------------------
-    r = decision.renal
-    warnings: list[str] = []
+
+def plan_renal(case: m.Case, k: Any, r: m.RenalBlock, doses: list, iodinated_intravascular: bool) -> m.RenalBlock:
+    """Body surface area, absolute GFR, creatinine freshness, dose limits and the hydration plan."""
+    pol: m.Policy = k.policy
+    p = case.patient
     bsa = agfr = None
     if p.weight_kg is not None and p.height_cm is not None:
         bsa = body.bsa(p.weight_kg, p.height_cm, pol.bsa_formula)
         if r.egfr is not None:
             agfr = body.absolute_gfr(min(r.egfr, body.EGFR_RANGE[1]), bsa)
+    fresh, warnings = creatinine_freshness(case, pol, iodinated_intravascular)
+    dose_limits = _dose_limits(doses, p, pol, agfr) if iodinated_intravascular else None
+    plan = hydration_plan(case, pol, warnings) if r.hydration_indicated else None
+    return r.model_copy(update=dict(
+        bsa_m2=_r(bsa, 2), bsa_formula=pol.bsa_formula if bsa is not None else None,
+        absolute_gfr_ml_min=_r(agfr), dose_limits=dose_limits, hydration_plan=plan, warnings=warnings, **fresh))
 
-    cr_age = cr_max = stale = None
-    if p.creatinine is not None and p.creatinine.measured_on is not None:
+
+def creatinine_freshness(case: m.Case, pol: m.Policy, iodinated_intravascular: bool) -> tuple[dict, list[str]]:
+    """The creatinine's age at the exam (or as-of) time, the policy's limit, and whether one is required."""
+    p = case.patient
+    at = case.scheduled_at or case.as_of
+    cr_age = stale = None
+    if p.creatinine is not None and p.creatinine.measured_on is not None and at is not None:
         cr_age = freshness.creatinine_age_days(p.creatinine.measured_on, at)
     cr_max = freshness.creatinine_max_age_days(p.inpatient, p.acute_kidney_injury,
                                                pol.creatinine_max_age_days_outpatient,
@@ -198,6 +230,7 @@ def _add_plans(case: m.Case, k: Any, decision: m.Decision) -> m.Decision:
         diabetes=p.diabetes, takes_metformin=p.takes_metformin, acute_kidney_injury=p.acute_kidney_injury,
         egfr_known=p.egfr, egfr_low_below=pol.egfr_prophylaxis_consider_below)
     required = iodinated_intravascular and bool(because)
+    warnings: list[str] = []
     if required:
         why = ", ".join(because)
         if p.creatinine is None and p.egfr is None:
@@ -213,49 +246,49 @@ def _add_plans(case: m.Case, k: Any, decision: m.Decision) -> m.Decision:
                             f"{cr_max:g} days for this patient: repeat it ({why})")
     elif stale and iodinated_intravascular:
         warnings.append(f"Creatinine is {cr_age:.1f} days old at the exam time (policy: at most {cr_max:g} days)")
+    return dict(creatinine_age_days=_r(cr_age), creatinine_max_age_days=cr_max, creatinine_stale=stale,
+                creatinine_required=required, creatinine_required_because=because), warnings
 
-    dose_limits = _dose_limits(doses, p, pol, agfr) if iodinated_intravascular else None
 
-    plan = None
-    if r.hydration_indicated:
-        if p.weight_kg is None:
-            warnings.append("Weight is needed to work out the hydration rate; policy regimen: "
-                            f"{pol.hydration_regimen}")
-        else:
-            hp = hydration.weight_based_plan(p.weight_kg, pol.hydration_ml_kg_h, pol.hydration_hours_before,
-                                             pol.hydration_hours_after, contrast_at=exam_at,
-                                             heart_failure=p.heart_failure)
-            plan = m.HydrationPlanBlock(
-                fluid=hp.fluid, rate_ml_h=round(hp.rate_ml_h), rate_ml_kg_h=pol.hydration_ml_kg_h,
-                start_at=hp.start_at, stop_at=hp.stop_at, volume_before_ml=round(hp.volume_before_ml),
-                volume_after_ml=round(hp.volume_after_ml), total_ml=round(hp.total_ml), warnings=hp.warnings)
+def hydration_plan(case: m.Case, pol: m.Policy, warnings: list[str]) -> m.HydrationPlanBlock | None:
+    """The weight-based hydration plan of the policy, as clock times from the exam time."""
+    p = case.patient
+    if p.weight_kg is None:
+        warnings.append("Weight is needed to work out the hydration rate; policy regimen: "
+                        f"{pol.hydration_regimen}")
+        return None
+    hp = hydration.weight_based_plan(p.weight_kg, pol.hydration_ml_kg_h, pol.hydration_hours_before,
+                                     pol.hydration_hours_after, contrast_at=case.scheduled_at,
+                                     heart_failure=p.heart_failure)
+    return m.HydrationPlanBlock(
+        fluid=hp.fluid, rate_ml_h=round(hp.rate_ml_h), rate_ml_kg_h=pol.hydration_ml_kg_h,
+        start_at=hp.start_at, stop_at=hp.stop_at, volume_before_ml=round(hp.volume_before_ml),
+        volume_after_ml=round(hp.volume_after_ml), total_ml=round(hp.total_ml), warnings=hp.warnings)
 
-    renal = r.model_copy(update=dict(
-        bsa_m2=_r(bsa, 2), bsa_formula=pol.bsa_formula if bsa is not None else None,
-        absolute_gfr_ml_min=_r(agfr), creatinine_age_days=_r(cr_age), creatinine_max_age_days=cr_max,
-        creatinine_stale=stale, creatinine_required=required, creatinine_required_because=because,
-        dose_limits=dose_limits, hydration_plan=plan, warnings=warnings))
 
-    # ---- premedication --------------------------------------------------------------------------
-    premed = decision.premedication
-    if premed.indicated:
-        sched = timeline.premedication_schedule(k.regimens[pol.premedication_regimen],
-                                                k.regimens[pol.premedication_accelerated_regimen], exam_at, now)
-        premed = premed.model_copy(update=dict(
-            regimen=sched.regimen.id, regimen_name=sched.regimen.name, lead_hours=_r(sched.lead_hours),
-            schedule=[m.ScheduleItem(at=d.at, hours_before=None if math.isnan(d.hours_before) else
-                                     round(d.hours_before, 2), drug=d.drug, dose=d.dose, route=d.route,
-                                     optional=d.optional) for d in sched.doses],
-            warnings=sched.warnings))
+def plan_premedication(case: m.Case, k: Any, premed: m.PremedicationBlock) -> m.PremedicationBlock:
+    """The regimen as clock times from the exam time and the as-of time (accelerated when time is short)."""
+    if not premed.indicated:
+        return premed
+    pol = k.policy
+    sched = timeline.premedication_schedule(k.regimens[pol.premedication_regimen],
+                                            k.regimens[pol.premedication_accelerated_regimen],
+                                            case.scheduled_at, case.as_of)
+    return premed.model_copy(update=dict(
+        regimen=sched.regimen.id, regimen_name=sched.regimen.name, lead_hours=_r(sched.lead_hours),
+        schedule=[m.ScheduleItem(at=d.at, hours_before=None if math.isnan(d.hours_before) else
+                                 round(d.hours_before, 2), drug=d.drug, dose=d.dose, route=d.route,
+                                 optional=d.optional) for d in sched.doses],
+        warnings=sched.warnings))
 
-    # ---- metformin ------------------------------------------------------------------------------
-    met = decision.metformin
-    if met.hold:
-        hold_from, recheck_at = timeline.metformin_timeline(exam_at)
-        met = met.model_copy(update=dict(hold_from=hold_from, recheck_after_hours=METFORMIN_RECHECK_HOURS,
-                                         recheck_at=recheck_at))
 
-    return decision.model_copy(update=dict(roles=new_roles, renal=renal, premedication=premed, metformin=met))
+def plan_metformin(case: m.Case, met: m.MetforminBlock) -> m.MetforminBlock:
+    """Hold from the exam time; re-check kidney function 48 h later before restarting."""
+    if not met.hold:
+        return met
+    hold_from, recheck_at = timeline.metformin_timeline(case.scheduled_at)
+    return met.model_copy(update=dict(hold_from=hold_from, recheck_after_hours=METFORMIN_RECHECK_HOURS,
+                                      recheck_at=recheck_at))
 
 
 def _dose_limits(doses: list[tuple[m.ExamRole, m.DoseBlock]], p: m.Patient, pol: m.Policy,
