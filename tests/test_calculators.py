@@ -294,3 +294,21 @@ def test_metformin_timeline():
     at = dt.datetime(2025, 3, 10, 10, 0)
     assert timeline.metformin_timeline(at) == (at, dt.datetime(2025, 3, 12, 10, 0))
     assert timeline.metformin_timeline(None) == (None, None)
+
+
+def test_every_formula_carries_a_worked_example_as_a_doctest():
+    # MetPy-style calculators: each public formula's docstring shows a worked example that pytest runs
+    # (pyproject: --doctest-modules over knowledge/calculators). Plumbing helpers are listed as such.
+    import ast
+    from pathlib import Path
+
+    plumbing = {"align_times", "choose_concentration", "plan_dose", "creatinine_max_age_days",
+                "creatinine_risk_factors", "bsa", "lay_out", "premedication_schedule", "andrade_coefficients",
+                "viscosity_at", "poiseuille_pressure_kpa", "field_range", "check"}
+    missing = []
+    for path in sorted((Path(__file__).resolve().parents[1] / "knowledge" / "calculators").glob("*.py")):
+        for node in ast.parse(path.read_text(encoding="utf-8")).body:
+            if isinstance(node, ast.FunctionDef) and not node.name.startswith("_") and node.name not in plumbing:
+                if ">>>" not in (ast.get_docstring(node) or ""):
+                    missing.append(f"{path.name}:{node.name}")
+    assert missing == []

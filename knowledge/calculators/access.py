@@ -12,10 +12,9 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 from ..errors import RangeError, out_of_range
+from .ranges import FLOW_RANGE, GAUGE_RANGE
 
 SITES = ("antecubital", "forearm", "hand_or_wrist", "central_power_injectable", "central_not_power_rated")
-GAUGE_RANGE = (14, 24)
-FLOW_RANGE = (0.1, 10.0)
 
 PREFERRED_GAUGE_AT_3 = 20  # 20-gauge or larger (smaller number) preferable at ≥3 mL/s
 HIGH_FLOW_ML_S = 3.0
@@ -37,6 +36,14 @@ def check_access(gauge: int, site: str, flow_ml_s: float) -> AccessCheck:
     """Is catheter ``gauge`` at ``site`` fit for ``flow_ml_s`` by power injection? (source ``acr-manual``)
 
     Valid range: gauge 14–24, flow 0.1–10 mL/s, site one of :data:`SITES`.
+
+    Examples (ACR Manual, IV access): a hand or wrist vein is limited to 1.5 mL/s; a 20-gauge
+    antecubital catheter suits 4 mL/s.
+
+    >>> check_access(22, "hand_or_wrist", 3.0).ok
+    False
+    >>> check_access(20, "antecubital", 4.0).ok
+    True
     """
     if not (GAUGE_RANGE[0] <= gauge <= GAUGE_RANGE[1]):
         raise out_of_range("iv_access.gauge", gauge, GAUGE_RANGE[0], GAUGE_RANGE[1], "gauge")

@@ -10,12 +10,9 @@ Source keys (see ``knowledge/data/sources.yaml``):
 
 from __future__ import annotations
 
-from ..errors import RangeError, out_of_range
+from ..errors import RangeError
+from .ranges import HEIGHT_CM_RANGE, WEIGHT_KG_RANGE, check
 
-#: Body weight accepted, kg (the same bounds as ``Patient.weight_kg``).
-WEIGHT_KG_RANGE = (0.5, 350.0)
-#: Height accepted, cm (the same bounds as ``Patient.height_cm``).
-HEIGHT_CM_RANGE = (30.0, 250.0)
 #: eGFR accepted for de-indexing, mL/min/1.73 m² (the same bounds as ``Patient.egfr``, widened to 0).
 EGFR_RANGE = (0.0, 200.0)
 #: Body surface area accepted, m² (covers the weight and height bounds above with either formula).
@@ -26,20 +23,21 @@ INDEX_BSA_M2 = 1.73
 BSA_FORMULAS = ("du_bois", "mosteller")
 
 
-def _check(field: str, value: float, bounds: tuple[float, float], unit: str) -> None:
-    if not (bounds[0] <= value <= bounds[1]):
-        raise out_of_range(field, value, bounds[0], bounds[1], unit)
-
-
 def bsa_du_bois(weight_kg: float, height_cm: float) -> float:
     """Body surface area by the Du Bois formula, m².
 
     Formula (source ``du-bois-1916``): BSA = 0.007184 · W^0.425 · H^0.725, W in kg, H in cm.
     Valid range: weight 0.5–350 kg, height 30–250 cm (the case model's bounds; the formula was derived
     in adults and children of ordinary build).
+
+    Example (no published worked example is known to us: the value is the formula as printed):
+    70 kg, 170 cm → 0.007184 · 70^0.425 · 170^0.725 = 1.81 m².
+
+    >>> round(bsa_du_bois(70, 170), 2)
+    1.81
     """
-    _check("weight_kg", weight_kg, WEIGHT_KG_RANGE, "kg")
-    _check("height_cm", height_cm, HEIGHT_CM_RANGE, "cm")
+    check("weight_kg", weight_kg, WEIGHT_KG_RANGE, "kg")
+    check("height_cm", height_cm, HEIGHT_CM_RANGE, "cm")
     return 0.007184 * weight_kg**0.425 * height_cm**0.725
 
 
@@ -48,9 +46,14 @@ def bsa_mosteller(weight_kg: float, height_cm: float) -> float:
 
     Formula (source ``mosteller-1987``): BSA = √(H · W / 3600), W in kg, H in cm.
     Valid range: weight 0.5–350 kg, height 30–250 cm.
+
+    Example (the formula as printed): 70 kg, 170 cm → √(170 · 70 / 3600) = 1.818 m².
+
+    >>> round(bsa_mosteller(70, 170), 3)
+    1.818
     """
-    _check("weight_kg", weight_kg, WEIGHT_KG_RANGE, "kg")
-    _check("height_cm", height_cm, HEIGHT_CM_RANGE, "cm")
+    check("weight_kg", weight_kg, WEIGHT_KG_RANGE, "kg")
+    check("height_cm", height_cm, HEIGHT_CM_RANGE, "cm")
     return (height_cm * weight_kg / 3600.0) ** 0.5
 
 
@@ -68,7 +71,14 @@ def absolute_gfr(egfr: float, bsa_m2: float) -> float:
 
     Formula (sources ``ckd-epi-2021``, ``kdigo-2012``): GFR = eGFR · BSA / 1.73.
     Valid range: eGFR 0–200 mL/min/1.73 m², BSA 0.05–4.5 m².
+
+    Invariant: a body surface area of exactly 1.73 m² leaves the eGFR unchanged.
+
+    >>> absolute_gfr(60, 1.73)
+    60.0
+    >>> round(absolute_gfr(57.5, 2.0), 1)
+    66.5
     """
-    _check("egfr", egfr, EGFR_RANGE, "mL/min/1.73 m²")
-    _check("bsa_m2", bsa_m2, BSA_M2_RANGE, "m²")
+    check("egfr", egfr, EGFR_RANGE, "mL/min/1.73 m²")
+    check("bsa_m2", bsa_m2, BSA_M2_RANGE, "m²")
     return egfr * bsa_m2 / INDEX_BSA_M2

@@ -14,14 +14,11 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 from ..errors import out_of_range
+from .ranges import FLOW_RANGE, IODINE_G_PER_KG_RANGE, VOLUME_RANGE, WEIGHT_KG_RANGE, check
 
 #: Strength of an iodinated agent for intravascular use, mg I/mL (the catalogue's vascular strengths lie
 #: in 140–400; 100–480 is the plausibility bound, common practice).
 CONCENTRATION_RANGE = (100.0, 480.0)
-FLOW_RANGE = (0.1, 10.0)  # mL/s, the case model's bound (power injectors go to about 10 mL/s)
-VOLUME_RANGE = (0.1, 300.0)  # mL, the case model's bound
-WEIGHT_KG_RANGE = (0.5, 350.0)
-IODINE_G_PER_KG_RANGE = (0.05, 1.5)  # the protocol model's bound
 SCAN_DURATION_RANGE = (0.5, 120.0)  # s
 OFFSET_RANGE = (0.0, 30.0)  # s
 
@@ -30,18 +27,18 @@ OFFSET_RANGE = (0.0, 30.0)  # s
 DEFAULT_CONCENTRATION_MG_I_ML = 300.0
 
 
-def _check(field_name: str, value: float, bounds: tuple[float, float], unit: str) -> None:
-    if not (bounds[0] <= value <= bounds[1]):
-        raise out_of_range(field_name, value, bounds[0], bounds[1], unit)
-
-
 def iodine_grams(volume_ml: float, concentration_mg_i_ml: float) -> float:
     """Grams of iodine in a volume: g I = volume (mL) · concentration (mg I/mL) / 1000.
 
     Valid range: volume 0.1–300 mL, concentration 100–480 mg I/mL.
+
+    Example: 100 mL of a 350 mg I/mL agent carry 35 g of iodine.
+
+    >>> iodine_grams(100, 350)
+    35.0
     """
-    _check("volume_ml", volume_ml, VOLUME_RANGE, "mL")
-    _check("concentration_mg_i_ml", concentration_mg_i_ml, CONCENTRATION_RANGE, "mg I/mL")
+    check("volume_ml", volume_ml, VOLUME_RANGE, "mL")
+    check("concentration_mg_i_ml", concentration_mg_i_ml, CONCENTRATION_RANGE, "mg I/mL")
     return volume_ml * concentration_mg_i_ml / 1000.0
 
 
@@ -49,9 +46,14 @@ def iodine_delivery_rate(concentration_mg_i_ml: float, flow_ml_s: float) -> floa
     """Iodine delivery rate, g I/s: IDR = concentration (mg I/mL) · flow (mL/s) / 1000.
 
     Valid range: concentration 100–480 mg I/mL, flow 0.1–10 mL/s.
+
+    Example (formula in the clinical notes: g I/s = mg I/mL · mL/s / 1000): 370 mg I/mL at 5 mL/s.
+
+    >>> iodine_delivery_rate(370, 5)
+    1.85
     """
-    _check("concentration_mg_i_ml", concentration_mg_i_ml, CONCENTRATION_RANGE, "mg I/mL")
-    _check("flow_ml_s", flow_ml_s, FLOW_RANGE, "mL/s")
+    check("concentration_mg_i_ml", concentration_mg_i_ml, CONCENTRATION_RANGE, "mg I/mL")
+    check("flow_ml_s", flow_ml_s, FLOW_RANGE, "mL/s")
     return concentration_mg_i_ml * flow_ml_s / 1000.0
 
 
@@ -60,10 +62,15 @@ def volume_for_iodine_dose(iodine_g_per_kg: float, weight_kg: float, concentrati
 
     Formula: volume = g I/kg · weight (kg) · 1000 / concentration (mg I/mL). Not capped here; the caller
     caps it at the protocol maximum. Valid range: 0.05–1.5 g I/kg, 0.5–350 kg, 100–480 mg I/mL.
+
+    Example (0.5 g I/kg, Acad Radiol 2013): 70 kg at 350 mg I/mL → 35 g → 100 mL.
+
+    >>> volume_for_iodine_dose(0.5, 70, 350)
+    100.0
     """
-    _check("iodine_g_per_kg", iodine_g_per_kg, IODINE_G_PER_KG_RANGE, "g I/kg")
-    _check("weight_kg", weight_kg, WEIGHT_KG_RANGE, "kg")
-    _check("concentration_mg_i_ml", concentration_mg_i_ml, CONCENTRATION_RANGE, "mg I/mL")
+    check("iodine_g_per_kg", iodine_g_per_kg, IODINE_G_PER_KG_RANGE, "g I/kg")
+    check("weight_kg", weight_kg, WEIGHT_KG_RANGE, "kg")
+    check("concentration_mg_i_ml", concentration_mg_i_ml, CONCENTRATION_RANGE, "mg I/mL")
     return iodine_g_per_kg * weight_kg * 1000.0 / concentration_mg_i_ml
 
 
@@ -72,17 +79,28 @@ def volume_for_scan(flow_ml_s: float, scan_duration_s: float, offset_s: float = 
 
     Common practice (injection lasts as long as the scan plus an offset). Valid range: flow 0.1–10 mL/s,
     scan 0.5–120 s, offset 0–30 s.
+
+    Example: 5 mL/s for a 10 s scan plus 5 s → 75 mL.
+
+    >>> volume_for_scan(5, 10, 5)
+    75
     """
-    _check("flow_ml_s", flow_ml_s, FLOW_RANGE, "mL/s")
-    _check("scan_duration_s", scan_duration_s, SCAN_DURATION_RANGE, "s")
-    _check("duration_offset_s", offset_s, OFFSET_RANGE, "s")
+    check("flow_ml_s", flow_ml_s, FLOW_RANGE, "mL/s")
+    check("scan_duration_s", scan_duration_s, SCAN_DURATION_RANGE, "s")
+    check("duration_offset_s", offset_s, OFFSET_RANGE, "s")
     return flow_ml_s * (scan_duration_s + offset_s)
 
 
 def injection_duration(volume_ml: float, flow_ml_s: float) -> float:
-    """Injection duration, s: duration = volume (mL) / flow (mL/s). Valid range: 0.1–300 mL, 0.1–10 mL/s."""
-    _check("volume_ml", volume_ml, VOLUME_RANGE, "mL")
-    _check("flow_ml_s", flow_ml_s, FLOW_RANGE, "mL/s")
+    """Injection duration, s: duration = volume (mL) / flow (mL/s). Valid range: 0.1–300 mL, 0.1–10 mL/s.
+
+    Example: 100 mL at 4 mL/s take 25 s.
+
+    >>> injection_duration(100, 4)
+    25.0
+    """
+    check("volume_ml", volume_ml, VOLUME_RANGE, "mL")
+    check("flow_ml_s", flow_ml_s, FLOW_RANGE, "mL/s")
     return volume_ml / flow_ml_s
 
 
@@ -132,14 +150,14 @@ def plan_dose(*, concentration_mg_i_ml: float, flow_ml_s: float | None, weight_k
     (angiographic CT); a weight-based iodine dose; a fixed protocol volume. A computed volume is capped at
     ``max_volume_ml`` (flagged); a planned volume above the cap is kept and flagged, never changed.
     Without a flow (hand injection in a catheter study) the rate, delivery rate and duration are None."""
-    _check("max_volume_ml", max_volume_ml, VOLUME_RANGE, "mL")
-    _check("concentration_mg_i_ml", concentration_mg_i_ml, CONCENTRATION_RANGE, "mg I/mL")
+    check("max_volume_ml", max_volume_ml, VOLUME_RANGE, "mL")
+    check("concentration_mg_i_ml", concentration_mg_i_ml, CONCENTRATION_RANGE, "mg I/mL")
     idr = iodine_delivery_rate(concentration_mg_i_ml, flow_ml_s) if flow_ml_s is not None else None
     warnings: list[str] = []
     capped = False
     volume: float | None
     if planned_volume_ml is not None:
-        _check("planned_volume_ml", planned_volume_ml, VOLUME_RANGE, "mL")
+        check("planned_volume_ml", planned_volume_ml, VOLUME_RANGE, "mL")
         volume, basis = float(planned_volume_ml), "planned volume"
         if volume > max_volume_ml:
             warnings.append(f"Planned volume {volume:g} mL is above the protocol maximum {max_volume_ml:g} mL")

@@ -38,6 +38,12 @@ def creatinine_age_days(measured_on: dt.date | dt.datetime, at: dt.datetime) -> 
 
     Formula: age = (at − measured_on) in days. A date without a time counts whole calendar days
     (sample taken on the 1st, exam on the 3rd → 2 days). A sample taken after ``at`` is an error.
+
+    Example: a sample of 28 November is 4 days old for an exam on 2 December.
+
+    >>> import datetime as dt
+    >>> creatinine_age_days(dt.date(2026, 11, 28), dt.datetime(2026, 12, 2, 9, 0))
+    4.0
     """
     if isinstance(measured_on, dt.datetime):
         a, b = align_times(at, measured_on)

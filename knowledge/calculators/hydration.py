@@ -12,12 +12,9 @@ from __future__ import annotations
 import datetime as dt
 from dataclasses import dataclass, field
 
-from ..errors import out_of_range
 
-WEIGHT_KG_RANGE = (0.5, 350.0)
-RATE_ML_KG_H_RANGE = (0.5, 3.0)  # ACR-NKF 2020: 1-3 mL/kg/h; ESUR bicarbonate 3 mL/kg/h; 0.5 for caution
-HOURS_BEFORE_RANGE = (0.0, 12.0)
-HOURS_AFTER_RANGE = (0.0, 12.0)
+from .ranges import HOURS_AFTER_RANGE, HOURS_BEFORE_RANGE, RATE_ML_KG_H_RANGE, WEIGHT_KG_RANGE, check
+
 HEART_FAILURE_CAUTION = (
     "Heart failure: IV fluid may cause volume overload - the ACR-NKF 2020 consensus gives saline unless "
     "contraindicated (e.g. heart failure); agree the volume with the referring clinician")
@@ -40,11 +37,6 @@ class HydrationPlan:
         return self.volume_before_ml + self.volume_after_ml
 
 
-def _check(name: str, value: float, bounds: tuple[float, float], unit: str) -> None:
-    if not (bounds[0] <= value <= bounds[1]):
-        raise out_of_range(name, value, bounds[0], bounds[1], unit)
-
-
 def weight_based_plan(weight_kg: float, rate_ml_kg_h: float, hours_before: float, hours_after: float, *,
                       fluid: str = "0.9% sodium chloride", contrast_at: dt.datetime | None = None,
                       heart_failure: bool = False) -> HydrationPlan:
@@ -53,11 +45,18 @@ def weight_based_plan(weight_kg: float, rate_ml_kg_h: float, hours_before: float
     Formula: rate (mL/h) = rate (mL/kg/h) · weight (kg); volume before = rate · hours before; volume after =
     rate · hours after. Starts ``hours_before`` before contrast and stops ``hours_after`` after it.
     Valid range: 0.5–350 kg, 0.5–3 mL/kg/h, 0–12 h before and after. Heart failure adds the caution.
+
+    Example (ACR-NKF 2020: 1-3 mL/kg/h, about 1 h before and 3-12 h after): 70 kg at 1 mL/kg/h,
+    1 h before and 6 h after → 70 mL/h, 70 mL before and 420 mL after.
+
+    >>> p = weight_based_plan(70, 1.0, 1.0, 6.0)
+    >>> (p.rate_ml_h, p.volume_before_ml, p.volume_after_ml)
+    (70.0, 70.0, 420.0)
     """
-    _check("weight_kg", weight_kg, WEIGHT_KG_RANGE, "kg")
-    _check("hydration_ml_kg_h", rate_ml_kg_h, RATE_ML_KG_H_RANGE, "mL/kg/h")
-    _check("hydration_hours_before", hours_before, HOURS_BEFORE_RANGE, "h")
-    _check("hydration_hours_after", hours_after, HOURS_AFTER_RANGE, "h")
+    check("weight_kg", weight_kg, WEIGHT_KG_RANGE, "kg")
+    check("hydration_ml_kg_h", rate_ml_kg_h, RATE_ML_KG_H_RANGE, "mL/kg/h")
+    check("hydration_hours_before", hours_before, HOURS_BEFORE_RANGE, "h")
+    check("hydration_hours_after", hours_after, HOURS_AFTER_RANGE, "h")
     rate = rate_ml_kg_h * weight_kg
     start = contrast_at - dt.timedelta(hours=hours_before) if contrast_at is not None else None
     stop = contrast_at + dt.timedelta(hours=hours_after) if contrast_at is not None else None

@@ -12,6 +12,7 @@ Source keys (see ``knowledge/data/sources.yaml``):
 from __future__ import annotations
 
 from ..errors import RangeError, out_of_range
+from .ranges import HEIGHT_CM_RANGE, check
 
 #: µmol/L per mg/dL of creatinine (molar mass 113.12 g/mol). Source: clinical notes, "Creatinine units".
 UMOL_PER_MG_DL = 88.4
@@ -22,13 +23,17 @@ CREATININE_MG_DL_RANGE = (0.1, 20.0)
 CYSTATIN_C_MG_L_RANGE = (0.2, 10.0)  # common practice plausibility bound
 ADULT_AGE_RANGE = (18.0, 120.0)
 CHILD_AGE_RANGE = (1.0, 18.0)
-HEIGHT_CM_RANGE = (30.0, 250.0)
 
 
 def creatinine_to_mg_dl(value: float, unit: str) -> float:
     """Convert a serum creatinine to mg/dL.
 
     Formula: mg/dL = µmol/L / 88.4. Units accepted: ``mg/dL``, ``umol/L``.
+
+    Worked example (clinical notes, creatinine units: 1 mg/dL = 88.4 µmol/L):
+
+    >>> creatinine_to_mg_dl(88.4, "umol/L")
+    1.0
     """
     if unit == "mg/dL":
         return float(value)
@@ -38,17 +43,18 @@ def creatinine_to_mg_dl(value: float, unit: str) -> float:
 
 
 def creatinine_from_mg_dl(value_mg_dl: float, unit: str) -> float:
-    """Convert a serum creatinine given in mg/dL to ``unit`` (``mg/dL`` or ``umol/L``)."""
+    """Convert a serum creatinine given in mg/dL to ``unit`` (``mg/dL`` or ``umol/L``).
+
+    Worked example (1 mg/dL = 88.4 µmol/L):
+
+    >>> creatinine_from_mg_dl(1.0, "umol/L")
+    88.4
+    """
     if unit == "mg/dL":
         return float(value_mg_dl)
     if unit == "umol/L":
         return float(value_mg_dl) * UMOL_PER_MG_DL
     raise RangeError(f"creatinine.unit: {unit!r} is not allowed; allowed: 'mg/dL', 'umol/L'", field="creatinine.unit")
-
-
-def _check(field: str, value: float, bounds: tuple[float, float], unit: str) -> None:
-    if not (bounds[0] <= value <= bounds[1]):
-        raise out_of_range(field, value, bounds[0], bounds[1], unit)
 
 
 def egfr_ckd_epi_2021(scr_mg_dl: float, age_years: float, sex: str) -> float:
@@ -60,9 +66,17 @@ def egfr_ckd_epi_2021(scr_mg_dl: float, age_years: float, sex: str) -> float:
         κ = 0.7 (female), 0.9 (male);  α = −0.241 (female), −0.302 (male)
 
     Valid for adults 18–120 years, IDMS-traceable creatinine 0.1–20 mg/dL.
+
+    Worked examples (N Engl J Med 2021 equation; values computed and matching a public reference
+    implementation, clinical notes): man, 60 years, 1.4 mg/dL → 57.54; woman, 40 years, 0.6 mg/dL → 116.3.
+
+    >>> round(egfr_ckd_epi_2021(1.4, 60, "male"), 2)
+    57.54
+    >>> round(egfr_ckd_epi_2021(0.6, 40, "female"), 1)
+    116.3
     """
-    _check("age_years", age_years, ADULT_AGE_RANGE, "years (CKD-EPI 2021 is for adults)")
-    _check("creatinine", scr_mg_dl, CREATININE_MG_DL_RANGE, "mg/dL")
+    check("age_years", age_years, ADULT_AGE_RANGE, "years (CKD-EPI 2021 is for adults)")
+    check("creatinine", scr_mg_dl, CREATININE_MG_DL_RANGE, "mg/dL")
     if sex == "female":
         kappa, alpha, factor = 0.7, -0.241, 1.012
     elif sex == "male":
@@ -83,10 +97,16 @@ def egfr_ckd_epi_2021_cystatin(scr_mg_dl: float, scys_mg_l: float, age_years: fl
         κ = 0.7 (female), 0.9 (male);  α = −0.219 (female), −0.144 (male)
 
     Valid for adults 18–120 years; creatinine 0.1–20 mg/dL; cystatin C 0.2–10 mg/L.
+
+    Worked example (same paper; clinical notes): man, 60 years, creatinine 1.4 mg/dL, cystatin C
+    0.8 mg/L → 83.97.
+
+    >>> round(egfr_ckd_epi_2021_cystatin(1.4, 0.8, 60, "male"), 2)
+    83.97
     """
-    _check("age_years", age_years, ADULT_AGE_RANGE, "years (CKD-EPI 2021 is for adults)")
-    _check("creatinine", scr_mg_dl, CREATININE_MG_DL_RANGE, "mg/dL")
-    _check("cystatin_c_mg_l", scys_mg_l, CYSTATIN_C_MG_L_RANGE, "mg/L")
+    check("age_years", age_years, ADULT_AGE_RANGE, "years (CKD-EPI 2021 is for adults)")
+    check("creatinine", scr_mg_dl, CREATININE_MG_DL_RANGE, "mg/dL")
+    check("cystatin_c_mg_l", scys_mg_l, CYSTATIN_C_MG_L_RANGE, "mg/L")
     if sex == "female":
         kappa, alpha, factor = 0.7, -0.219, 0.963
     elif sex == "male":
@@ -112,9 +132,14 @@ def egfr_bedside_schwartz(height_cm: float, scr_mg_dl: float) -> float:
     Formula (source ``schwartz-2009``): eGFR = 0.413 · height (cm) / Scr (mg/dL).
     Valid for children 1–17 years (age is checked by the caller), height 30–250 cm,
     creatinine 0.1–20 mg/dL (enzymatic, IDMS-traceable).
+
+    Worked example (J Am Soc Nephrol 2009 equation; clinical notes): 120 cm, 0.6 mg/dL → 82.6.
+
+    >>> round(egfr_bedside_schwartz(120, 0.6), 1)
+    82.6
     """
-    _check("height_cm", height_cm, HEIGHT_CM_RANGE, "cm")
-    _check("creatinine", scr_mg_dl, CREATININE_MG_DL_RANGE, "mg/dL")
+    check("height_cm", height_cm, HEIGHT_CM_RANGE, "cm")
+    check("creatinine", scr_mg_dl, CREATININE_MG_DL_RANGE, "mg/dL")
     return 0.413 * height_cm / scr_mg_dl
 
 
@@ -133,6 +158,11 @@ def kdigo_category(egfr: float) -> str:
     """KDIGO 2012 GFR category for an eGFR in mL/min/1.73 m² (source ``kdigo-2012``, Table 5).
 
     G1 ≥90, G2 60–89, G3a 45–59, G3b 30–44, G4 15–29, G5 <15.
+
+    Table 5 bands, at and either side of a bound:
+
+    >>> [kdigo_category(x) for x in (90, 89.9, 60, 59.9, 45, 44.9, 30, 29.9, 15, 14.9)]
+    ['G1', 'G2', 'G2', 'G3a', 'G3a', 'G3b', 'G3b', 'G4', 'G4', 'G5']
     """
     if egfr < 0:
         raise out_of_range("egfr", egfr, 0, None, "mL/min/1.73 m²")

@@ -40,7 +40,13 @@ class Schedule:
 
 
 def hours_between(start: dt.datetime, end: dt.datetime) -> float:
-    """Hours from ``start`` to ``end`` (negative if ``end`` is earlier)."""
+    """Hours from ``start`` to ``end`` (negative if ``end`` is earlier).
+
+    Example: 15:00 to 09:00 the next day is 18 h.
+
+    >>> hours_between(dt.datetime(2026, 12, 1, 15, 0), dt.datetime(2026, 12, 2, 9, 0))
+    18.0
+    """
     s, e = align_times(start, end)
     return (e - s).total_seconds() / 3600.0
 
@@ -127,6 +133,13 @@ def metformin_timeline(contrast_at: dt.datetime | None,
     Sources ``acr-manual`` and ``esur-pc-aki-2018``: stop at (or before) the time of contrast; withhold
     48 h; restart only after kidney function is re-evaluated. Returns (hold_from, recheck_at); both None
     without an exam time.
+
+    Example (ACR Manual: withhold 48 h): contrast at 09:00 on 2 December → re-check from 09:00 on
+    4 December.
+
+    >>> hold, recheck = metformin_timeline(dt.datetime(2026, 12, 2, 9, 0))
+    >>> recheck.isoformat()
+    '2026-12-04T09:00:00'
     """
     if not (0 < recheck_after_hours <= 168):
         from ..errors import out_of_range

@@ -15,21 +15,17 @@ from __future__ import annotations
 
 import math
 
-from ..errors import RangeError, out_of_range
+from ..errors import RangeError
+from .ranges import check
 
 KELVIN = 273.15
 ROOM_C = 20.0
 BODY_C = 37.0
 VISCOSITY_RANGE = (0.3, 100.0)  # mPa·s: water at 37 °C is about 0.7; the most viscous agents below 40
 TEMPERATURE_RANGE = (ROOM_C, BODY_C)  # interpolation only
-FLOW_RANGE = (0.01, 10.0)  # mL/s
+FLOW_RANGE = (0.01, 10.0)  # mL/s: slow hand injections included
 LENGTH_MM_RANGE = (1.0, 2000.0)
 DIAMETER_MM_RANGE = (0.1, 5.0)
-
-
-def _check(field: str, value: float, bounds: tuple[float, float], unit: str) -> None:
-    if not (bounds[0] <= value <= bounds[1]):
-        raise out_of_range(field, value, bounds[0], bounds[1], unit)
 
 
 def andrade_coefficients(t1_c: float, eta1: float, t2_c: float, eta2: float) -> tuple[float, float]:
@@ -37,8 +33,8 @@ def andrade_coefficients(t1_c: float, eta1: float, t2_c: float, eta2: float) -> 
 
     B = ln(η1/η2) / (1/T1 − 1/T2);  A = ln η1 − B/T1. Viscosities 0.3–100 mPa·s; T1 ≠ T2.
     """
-    _check("viscosity_mpas", eta1, VISCOSITY_RANGE, "mPa·s")
-    _check("viscosity_mpas", eta2, VISCOSITY_RANGE, "mPa·s")
+    check("viscosity_mpas", eta1, VISCOSITY_RANGE, "mPa·s")
+    check("viscosity_mpas", eta2, VISCOSITY_RANGE, "mPa·s")
     if t1_c == t2_c:
         raise RangeError(f"temperature_c: {t2_c!r} is the same as the first point; allowed: two different "
                          "temperatures", field="temperature_c")
@@ -51,16 +47,22 @@ def andrade_coefficients(t1_c: float, eta1: float, t2_c: float, eta2: float) -> 
 def viscosity_at(temperature_c: float, eta_20c: float, eta_37c: float) -> float:
     """Viscosity at ``temperature_c`` (20–37 °C), mPa·s, by the Andrade relation through the tabulated
     20 °C and 37 °C values. Outside 20–37 °C it is an error, never an extrapolation."""
-    _check("temperature_c", temperature_c, TEMPERATURE_RANGE, "°C")
+    check("temperature_c", temperature_c, TEMPERATURE_RANGE, "°C")
     a, b = andrade_coefficients(ROOM_C, eta_20c, BODY_C, eta_37c)
     return math.exp(a + b / (temperature_c + KELVIN))
 
 
 def pressure_ratio(eta_from: float, eta_to: float) -> float:
     """Injection pressure after / before a viscosity change, same flow and catheter (source
-    ``hagen-poiseuille``): ΔP_to / ΔP_from = η_to / η_from. Viscosities 0.3–100 mPa·s."""
-    _check("viscosity_mpas", eta_from, VISCOSITY_RANGE, "mPa·s")
-    _check("viscosity_mpas", eta_to, VISCOSITY_RANGE, "mPa·s")
+    ``hagen-poiseuille``): ΔP_to / ΔP_from = η_to / η_from. Viscosities 0.3–100 mPa·s.
+
+    Invariant (Hagen-Poiseuille): halving the viscosity halves the pressure at the same flow.
+
+    >>> pressure_ratio(10.0, 5.0)
+    0.5
+    """
+    check("viscosity_mpas", eta_from, VISCOSITY_RANGE, "mPa·s")
+    check("viscosity_mpas", eta_to, VISCOSITY_RANGE, "mPa·s")
     return eta_to / eta_from
 
 
@@ -69,10 +71,10 @@ def poiseuille_pressure_kpa(viscosity_mpas: float, flow_ml_s: float, length_mm: 
     """Pressure drop along a straight catheter, kPa (source ``hagen-poiseuille``, laminar flow):
     ΔP = 8 η L Q / (π r⁴). Viscosity 0.3–100 mPa·s, flow 0.01–10 mL/s, length 1–2000 mm, inner diameter
     0.1–5 mm. A lower bound on the real pressure (connectors and turbulence add to it)."""
-    _check("viscosity_mpas", viscosity_mpas, VISCOSITY_RANGE, "mPa·s")
-    _check("flow_ml_s", flow_ml_s, FLOW_RANGE, "mL/s")
-    _check("length_mm", length_mm, LENGTH_MM_RANGE, "mm")
-    _check("inner_diameter_mm", inner_diameter_mm, DIAMETER_MM_RANGE, "mm")
+    check("viscosity_mpas", viscosity_mpas, VISCOSITY_RANGE, "mPa·s")
+    check("flow_ml_s", flow_ml_s, FLOW_RANGE, "mL/s")
+    check("length_mm", length_mm, LENGTH_MM_RANGE, "mm")
+    check("inner_diameter_mm", inner_diameter_mm, DIAMETER_MM_RANGE, "mm")
     eta = viscosity_mpas * 1e-3  # Pa·s
     q = flow_ml_s * 1e-6  # m³/s
     length = length_mm * 1e-3

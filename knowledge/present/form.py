@@ -6,22 +6,9 @@ calculators' validity ranges, so the form and the validation can never disagree.
 
 from __future__ import annotations
 
-import annotated_types as at
-from pydantic import BaseModel
-
 from ..tables import models as m
 from ..calculators import kidney
-
-
-def field_range(model: type[BaseModel], name: str) -> tuple[float | None, float | None]:
-    """(low, high) bounds of a numeric field, from its ge/gt/le/lt constraints (None where open)."""
-    low = high = None
-    for c in model.model_fields[name].metadata:
-        if isinstance(c, (at.Ge, at.Gt)):
-            low = float(getattr(c, "ge", getattr(c, "gt", None)))
-        elif isinstance(c, (at.Le, at.Lt)):
-            high = float(getattr(c, "le", getattr(c, "lt", None)))
-    return low, high
+from ..calculators.ranges import field_range
 
 
 def _g(x: float) -> str:
