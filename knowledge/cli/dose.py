@@ -9,6 +9,8 @@ from typing import Any
 
 from ..calculators import access as access_calc
 from ..calculators import body, kidney
+from ..calculators import dose as dose_calc
+from ..calculators import ranges as R
 from ..decision.plans import _dose_limits, dose_block, mg_i_strengths
 from ..errors import CaseError, out_of_range
 from ..tables import models as m
@@ -49,20 +51,51 @@ def add_dose_parser(subparsers: Any) -> argparse.ArgumentParser:
     return ps
 
 
+#: (attribute, flag, low, high, unit): the calculators' ranges, which come from the case and protocol models
 _FLAG_RANGES = (
-    ("weight", "--weight", 0.5, 350, "kg"), ("height", "--height", 30, 250, "cm"),
-    ("volume", "--volume", 0.1, 300, "mL"), ("flow", "--flow", 0.1, 10, "mL/s"),
-    ("egfr", "--egfr", 1, 200, "mL/min/1.73 m²"), ("g_per_kg", "--g-per-kg", 0.05, 1.5, "g I/kg"),
-    ("fixed_volume", "--fixed-volume", 0.1, 300, "mL"), ("max_volume", "--max-volume", 0.1, 300, "mL"),
-    ("scan_duration", "--scan-duration", 0.5, 120, "s"), ("offset", "--offset", 0, 30, "s"),
-    ("gauge", "--gauge", 14, 24, "gauge"),
-    ("concentration", "--concentration", 100, 480, "mg I/mL"),
+    ("weight", "--weight", *R.WEIGHT_KG_RANGE, "kg"), ("height", "--height", *R.HEIGHT_CM_RANGE, "cm"),
+    ("volume", "--volume", *R.VOLUME_RANGE, "mL"), ("flow", "--flow", *R.FLOW_RANGE, "mL/s"),
+    ("egfr", "--egfr", *R.field_range(m.Patient, "egfr"), "mL/min/1.73 m²"),
+    ("g_per_kg", "--g-per-kg", *R.IODINE_G_PER_KG_RANGE, "g I/kg"),
+    ("fixed_volume", "--fixed-volume", *R.VOLUME_RANGE, "mL"), ("max_volume", "--max-volume", *R.VOLUME_RANGE, "mL"),
+    ("scan_duration", "--scan-duration", *dose_calc.SCAN_DURATION_RANGE, "s"),
+    ("offset", "--offset", *dose_calc.OFFSET_RANGE, "s"),
+    ("gauge", "--gauge", *R.GAUGE_RANGE, "gauge"),
+    ("concentration", "--concentration", *dose_calc.CONCENTRATION_RANGE, "mg I/mL"),
 )
 
 
 def dose_plan(args: argparse.Namespace, knowledge: Any = None) -> dict[str, Any]:
     """The dose plan of ``contrast-aid dose`` as a JSON-ready dict. Raises CaseError/RangeError whose
     messages name the command-line flag, the value given and what is allowed."""
+    check_flags(args)
+    k = knowledge or load_knowledge(policy=getattr(args, "policy", None))
+    agent = flag_agent(k, args.agent)
+    protocol, route, catheter = flag_protocol(k, args)
+    access = m.IVAccess(gauge=args.gauge, site=args.site) if args.gauge is not None else None
+    block = dose_block(agent, protocol, route, weight_kg=args.weight, planned_volume_ml=args.volume,
+                       planned_flow_ml_s=args.flow, concentration_mg_i_ml=args.concentration, iv_access=access,
+                       cite=k.cite, concentration_field="--concentration")
+    if block is None or block.volume_ml is None:
+        missing = "--weight (the protocol is weight-based)" if protocol and protocol.iodine_g_per_kg else "--volume"
+        raise CaseError(f"{missing.split()[0]}: missing; allowed: {missing} to work out the volume",
+                        field=missing.split()[0])
+    out: dict[str, Any] = {"dose": block.model_dump(mode="json")}
+    agfr = None
+    if args.egfr is not None and args.weight is not None and args.height is not None:
+        bsa = body.bsa(args.weight, args.height, k.policy.bsa_formula)
+        agfr = body.absolute_gfr(args.egfr, bsa)
+        out["bsa_m2"], out["bsa_formula"] = round(bsa, 2), k.policy.bsa_formula
+        out["absolute_gfr_ml_min"] = round(agfr, 1)
+    patient = m.Patient(weight_kg=args.weight, creatinine=flag_creatinine(args))
+    role = m.ExamRole(route=route, purpose="dose command", agents=[agent.id], catheter_study=catheter,
+                      renal_exposure=m.RenalExposure.second_pass)
+    out["dose_limits"] = _dose_limits([(role, block)], patient, k.policy, agfr).model_dump(mode="json")
+    return out
+
+
+def check_flags(args: argparse.Namespace) -> None:
+    """Every numeric flag in its range, and the choice flags among their values."""
     for attr, flag, lo, hi, unit in _FLAG_RANGES:
         value = getattr(args, attr, None)
         if value is not None and not (lo <= value <= hi):
@@ -77,14 +110,22 @@ def dose_plan(args: argparse.Namespace, knowledge: Any = None) -> dict[str, Any]
     if args.route not in ("intravenous", "intra_arterial"):
         raise CaseError(f"--route: {args.route!r} is not allowed; allowed: intravenous, intra_arterial",
                         field="--route")
-    k = knowledge or load_knowledge(policy=getattr(args, "policy", None))
-    agent = k.agents.get(args.agent)
+
+
+def flag_agent(k: Any, agent_id: str) -> m.Agent:
+    """The ``--agent``: a known iodinated agent with strengths in mg I/mL."""
+    agent = k.agents.get(agent_id)
     if agent is None:
-        raise CaseError(f"--agent: {args.agent!r} is not a known agent; allowed: the ids of `contrast-aid agents`",
+        raise CaseError(f"--agent: {agent_id!r} is not a known agent; allowed: the ids of `contrast-aid agents`",
                         field="--agent")
     if agent.family is not m.Family.iodinated or not mg_i_strengths(agent):
-        raise CaseError(f"--agent: {args.agent!r} is not an iodinated agent with strengths in mg I/mL; allowed: "
+        raise CaseError(f"--agent: {agent_id!r} is not an iodinated agent with strengths in mg I/mL; allowed: "
                         "an iodinated agent such as iohexol", field="--agent")
+    return agent
+
+
+def flag_protocol(k: Any, args: argparse.Namespace) -> tuple[m.DoseProtocol | None, m.Route, bool]:
+    """The protocol (from ``--exam`` and/or the protocol flags), the route and whether it is a catheter study."""
     route = m.Route(args.route)
     protocol = None
     catheter = bool(args.catheter_study)
@@ -102,8 +143,8 @@ def dose_plan(args: argparse.Namespace, knowledge: Any = None) -> dict[str, Any]
                                    max_volume_ml=args.max_volume, scan_duration_s=args.scan_duration,
                                    duration_offset_s=args.offset).items() if v is not None}
     if protocol is None and args.flow is None and not own and args.volume is not None:
-        pass  # a hand injection of a planned volume (catheter study): no rate, no protocol
-    elif own or protocol is None:
+        return None, route, catheter  # a hand injection of a planned volume (catheter study): no rate
+    if own or protocol is None:
         if args.flow is None and protocol is None:
             raise CaseError("--flow: missing; allowed: a flow in mL/s (0.1-10), or --exam with a protocol, or "
                             "--volume alone for a hand injection", field="--flow")
@@ -112,32 +153,17 @@ def dose_plan(args: argparse.Namespace, knowledge: Any = None) -> dict[str, Any]
         if args.flow is not None:
             base["flow_ml_s"] = args.flow
         protocol = m.DoseProtocol.model_validate(base)  # every value was range-checked above
-    access = m.IVAccess(gauge=args.gauge, site=args.site) if args.gauge is not None else None
-    block = dose_block(agent, protocol, route, weight_kg=args.weight, planned_volume_ml=args.volume,
-                       planned_flow_ml_s=args.flow, concentration_mg_i_ml=args.concentration, iv_access=access,
-                       cite=k.cite, concentration_field="--concentration")
-    if block is None or block.volume_ml is None:
-        missing = "--weight (the protocol is weight-based)" if protocol and protocol.iodine_g_per_kg else "--volume"
-        raise CaseError(f"{missing.split()[0]}: missing; allowed: {missing} to work out the volume",
-                        field=missing.split()[0])
-    out: dict[str, Any] = {"dose": block.model_dump(mode="json")}
-    agfr = None
-    if args.egfr is not None and args.weight is not None and args.height is not None:
-        bsa = body.bsa(args.weight, args.height, k.policy.bsa_formula)
-        agfr = body.absolute_gfr(args.egfr, bsa)
-        out["bsa_m2"], out["bsa_formula"] = round(bsa, 2), k.policy.bsa_formula
-        out["absolute_gfr_ml_min"] = round(agfr, 1)
-    creat = None
-    if args.creatinine is not None:
-        lo, hi = (kidney.creatinine_from_mg_dl(b, args.unit) for b in kidney.CREATININE_MG_DL_RANGE)
-        if not (lo <= args.creatinine <= hi):
-            raise out_of_range("--creatinine", args.creatinine, round(lo, 2), round(hi, 2), args.unit)
-        creat = m.Creatinine(value=args.creatinine, unit=args.unit)
-    patient = m.Patient(weight_kg=args.weight, creatinine=creat)
-    role = m.ExamRole(route=route, purpose="dose command", agents=[agent.id], catheter_study=catheter,
-                      renal_exposure=m.RenalExposure.second_pass)
-    out["dose_limits"] = _dose_limits([(role, block)], patient, k.policy, agfr).model_dump(mode="json")
-    return out
+    return protocol, route, catheter
+
+
+def flag_creatinine(args: argparse.Namespace) -> m.Creatinine | None:
+    """``--creatinine`` with ``--unit``, in the equations' range (for the Cigarroa limit)."""
+    if args.creatinine is None:
+        return None
+    lo, hi = (kidney.creatinine_from_mg_dl(b, args.unit) for b in kidney.CREATININE_MG_DL_RANGE)
+    if not (lo <= args.creatinine <= hi):
+        raise out_of_range("--creatinine", args.creatinine, round(lo, 2), round(hi, 2), args.unit)
+    return m.Creatinine(value=args.creatinine, unit=args.unit)
 
 
 def dose_command(args: argparse.Namespace) -> int:
