@@ -162,9 +162,20 @@ def test_strength_not_in_catalogue_is_an_error(k):
     assert str(e.value) == "planned_concentration_mg_i_ml: 350 is not a strength of iopamidol; allowed: 200, 300, 370"
 
 
-def test_concentration_choice_highest_below_protocol(k):
-    # protocol asks 350 mg I/mL; iopamidol has 200/300/370 -> 300 (the highest at or below)
+def test_concentration_choice_nearest_to_the_iodine_delivery_rate_target(k):
+    # issue 8 item 9 (the old "highest strength below 350" answer was wrong for CT angiography): the aorta
+    # protocol's target is 1.4 g I/s at 4 mL/s; iopamidol 370 gives 1.48 g I/s, 300 gives 1.20 -> 370, the
+    # nearest (IDR = mg I/mL x mL/s / 1000, a unit identity)
     role = k.exams["ct-angiography-aorta"].roles[0]
+    b = dose_block(k.agents["iopamidol"], role.protocol, role.route, weight_kg=70)
+    assert b.concentration_mg_i_ml == 370 and b.iodine_delivery_rate_g_s == 1.48
+    assert "nearest to the protocol's iodine delivery rate target 1.4 g I/s" in b.concentration_choice
+    assert b.iodine_delivery_rate_target_g_s == 1.4
+
+
+def test_concentration_choice_highest_below_protocol_without_a_rate_target(k):
+    # a portal-venous protocol has no rate target: the highest strength at or below the protocol's 350
+    role = k.exams["ct-liver-multiphase"].roles[0]
     b = dose_block(k.agents["iopamidol"], role.protocol, role.route, weight_kg=70)
     assert b.concentration_mg_i_ml == 300 and "highest strength below the protocol's 350" in b.concentration_choice
 

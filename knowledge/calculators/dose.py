@@ -126,6 +126,18 @@ def choose_concentration(available: list[float], wanted: float | None) -> tuple[
     return value, f"{value:g} mg I/mL: {how}"
 
 
+def choose_concentration_for_idr(available: list[float], flow_ml_s: float, target_g_s: float) -> tuple[float, str]:
+    """The strength whose iodine delivery rate at ``flow_ml_s`` is nearest to ``target_g_s`` (ties: the
+    higher strength, so the target is reached). IDR = strength (mg I/mL) · flow (mL/s) / 1000."""
+    if not available:
+        raise out_of_range("concentrations", "none", 1, None, "strength in mg I/mL in the catalogue")
+    strengths = sorted(set(float(v) for v in available))
+    value = min(strengths, key=lambda v: (abs(v * flow_ml_s / 1000.0 - target_g_s), -v))
+    idr = value * flow_ml_s / 1000.0
+    return value, (f"{value:g} mg I/mL: nearest to the protocol's iodine delivery rate target {target_g_s:g} g I/s "
+                   f"at {flow_ml_s:g} mL/s ({idr:.2f} g I/s)")
+
+
 @dataclass
 class DosePlan:
     """A worked dose plan (numbers rounded only when shown)."""

@@ -82,41 +82,65 @@ def lay_out(regimen: Any, exam_at: dt.datetime | None, now: dt.datetime | None) 
 
 
 def premedication_schedule(elective: Any, accelerated: Any, exam_at: dt.datetime | None,
-                           now: dt.datetime | None) -> Schedule:
+                           now: dt.datetime | None, urgency: str = "elective") -> Schedule:
     """Choose and lay out a premedication regimen (policy ``regimens``; source ``acr-manual``).
 
-    The elective regimen when at least its ``minimum_lead_hours`` are left before the exam; otherwise the
-    accelerated one, with a warning (and a second warning when even that one's minimum is not left — then
-    the doses that still fit are shown and the exam may need to move). With no exam time, the elective
-    regimen is shown as hours before the exam; with an exam time already past, the elective regimen is
-    laid out against it with a warning (never an error, so old cases can be re-opened). With no ``now``
-(the case gave no as-of time) the elective regimen is laid out against the exam time, with a warning.
+    ``elective`` is one regimen or a list tried in order: the first whose ``minimum_lead_hours`` fit the time
+    left before the exam is laid out (with 12 h 45 min left a 12 h regimen fits where a 13 h one does not);
+    when none fits, the accelerated one, with a warning (and a second warning when even that one's minimum is
+    not left — then the doses that still fit are shown). Only an ``elective`` exam is advised to move; an
+    ``urgent`` one is told to give what fits and switch agent; an ``emergency`` is never delayed for
+    premedication (the accelerated regimen, or what fits in the time left; a different agent; the
+    resuscitation team ready — ACR Manual, from memory). With no exam time, the first elective regimen is
+    shown as hours before the exam (the accelerated one in an emergency); with an exam time already past, it
+    is laid out against it with a warning (never an error, so old cases can be re-opened). With no ``now``
+    (the case gave no as-of time) it is laid out against the exam time, with a warning.
     """
+    electives = list(elective) if isinstance(elective, (list, tuple)) else [elective]
+    first = accelerated if urgency == "emergency" else electives[0]
+    emergency_note = ("Emergency: the exam is not delayed for premedication - give what fits in the time left, "
+                      "use a different agent from any culprit, resuscitation team ready")
     if exam_at is None:
-        return Schedule(elective, None, lay_out(elective, None, None),
-                        ["No scheduled exam time: doses are given as hours before the exam"])
+        w = ["No scheduled exam time: doses are given as hours before the exam"]
+        if urgency == "emergency":
+            w.append(emergency_note)
+        return Schedule(first, None, lay_out(first, None, None), w)
     if now is None:
-        return Schedule(elective, None, lay_out(elective, exam_at, None),
-                        ["No as-of time given: the time left before the exam was not checked; the elective "
-                         "regimen is laid out against the exam time"])
+        return Schedule(first, None, lay_out(first, exam_at, None),
+                        ["No as-of time given: the time left before the exam was not checked; the "
+                         f"{first.name.lower()} is laid out against the exam time"])
     lead = hours_between(now, exam_at)
     if lead < 0:
-        return Schedule(elective, lead, lay_out(elective, exam_at, None),
+        return Schedule(first, lead, lay_out(first, exam_at, None),
                         [f"The scheduled time {exam_at.isoformat()} is before as_of {now.isoformat()}: "
                          "the doses are shown as they would have been given; check the exam time"])
     warnings: list[str] = []
-    regimen = elective
-    if lead < elective.minimum_lead_hours:
+    fitting = [r for r in electives if lead >= r.minimum_lead_hours] if urgency != "emergency" else []
+    if fitting:
+        regimen = fitting[0]
+        if regimen is not electives[0]:
+            warnings.append(f"{lead:.1f} h left before the exam: not enough for the {electives[0].name.lower()} "
+                            f"(needs {electives[0].minimum_lead_hours:g} h); the {regimen.name.lower()} fits")
+    else:
         regimen = accelerated
-        warnings.append(
-            f"Only {lead:.1f} h left before the exam: not enough for the {elective.name.lower()} "
-            f"(needs {elective.minimum_lead_hours:g} h); the accelerated regimen is offered instead")
+        if urgency == "emergency":
+            warnings.append(emergency_note)
+        else:
+            names = " or the ".join(f"{r.name.lower()} (needs {r.minimum_lead_hours:g} h)" for r in electives)
+            warnings.append(f"Only {lead:.1f} h left before the exam: not enough for the {names}; the accelerated "
+                            "regimen is offered instead")
         if lead < accelerated.minimum_lead_hours:
-            later = exam_at + dt.timedelta(hours=accelerated.minimum_lead_hours - lead)
-            warnings.append(
-                f"Even the accelerated regimen needs at least {accelerated.minimum_lead_hours:g} h (ACR Manual: "
-                f"4-5 h): consider moving the exam to {later.strftime('%Y-%m-%d %H:%M')} or later, or an "
-                "alternative that needs no iodinated contrast")
+            if urgency == "elective":
+                later = exam_at + dt.timedelta(hours=accelerated.minimum_lead_hours - lead)
+                warnings.append(
+                    f"Even the accelerated regimen needs at least {accelerated.minimum_lead_hours:g} h (ACR Manual: "
+                    f"4-5 h): consider moving the exam to {later.strftime('%Y-%m-%d %H:%M')} or later, or an "
+                    "alternative that needs no iodinated contrast")
+            else:
+                warnings.append(
+                    f"Less than the accelerated regimen's {accelerated.minimum_lead_hours:g} h is left: give the "
+                    "doses that fit, use a different agent, resuscitation team ready; do not delay a "
+                    f"{urgency} exam for it")
     doses = lay_out(regimen, exam_at, now)
     for d in doses:
         if d.at is not None and hours_between(now, d.at) < 0:

@@ -28,6 +28,7 @@ from typing import Any
 from ..tables import models as m
 from ..calculators import access as access_calc
 from ..calculators import body, dose as dose_calc, freshness, hydration, kidney, limits, timeline, viscosity
+from ..calculators import paediatric
 from ..errors import CaseError, ContrastAidError, RangeError
 
 #: Hours after contrast at which kidney function is re-checked before metformin is restarted.
@@ -77,8 +78,8 @@ def dose_block(agent: m.Agent, protocol: m.DoseProtocol | None, route: m.Route, 
     strengths = mg_i_strengths(agent)
     if not strengths or (protocol is None and planned_volume_ml is None):
         return None
-    conc, choice = pick_strength(agent, strengths, protocol, concentration_mg_i_ml, concentration_field)
     flow = planned_flow_ml_s if planned_flow_ml_s is not None else (protocol.flow_ml_s if protocol else None)
+    conc, choice = pick_strength(agent, strengths, protocol, concentration_mg_i_ml, concentration_field, flow)
     plan = dose_calc.plan_dose(
         concentration_mg_i_ml=conc, flow_ml_s=flow, weight_kg=weight_kg,
         iodine_g_per_kg=protocol.iodine_g_per_kg if protocol else None,
@@ -96,14 +97,106 @@ def dose_block(agent: m.Agent, protocol: m.DoseProtocol | None, route: m.Route, 
         volume_ml=_r(plan.volume_ml), volume_basis=plan.volume_basis, iodine_g=_r(plan.iodine_g),
         flow_ml_s=plan.flow_ml_s, iodine_delivery_rate_g_s=_r(plan.iodine_delivery_rate_g_s, 2),
         duration_s=_r(plan.duration_s), access_ok=access_ok, access_message=access_msg,
-        viscosity_mpas=visc, warnings=warnings)
+        viscosity_mpas=visc, warnings=warnings,
+        iodine_delivery_rate_target_g_s=protocol.iodine_delivery_rate_g_s if protocol else None)
+
+
+def child_dose_block(agent: m.Agent, protocol: m.DoseProtocol, *, weight_kg: float | None,
+                     planned_volume_ml: float | None, planned_flow_ml_s: float | None,
+                     concentration_mg_i_ml: float | None, iv_access: m.IVAccess | None, cite: Any,
+                     concentration_field: str = "planned_concentration_mg_i_ml") -> m.DoseBlock | None:
+    """The intravenous dose of a patient under 18: the paediatric protocol (mL/kg with a per-kg and an absolute
+    cap; flow set by the cannula; hand injection for small cannulas) replaces the adult volume and flow."""
+    strengths = mg_i_strengths(agent)
+    if not strengths:
+        return None
+    pp = protocol.paediatric or m.PaediatricProtocol()
+    values = [c.value for c in strengths]
+    if concentration_mg_i_ml is None:
+        conc, choice = dose_calc.choose_concentration(values, pp.concentration_mg_i_ml)
+    else:
+        conc, choice = pick_strength(agent, strengths, None, concentration_mg_i_ml, concentration_field)
+    adult_max = pp.max_volume_ml or protocol.max_volume_ml
+    warnings = [f"Patient under {paediatric.ADULT_AGE_YEARS:g}: paediatric protocol ({pp.ml_per_kg:g} mL/kg of "
+                f"{pp.concentration_mg_i_ml:g} mg I/mL, at most {pp.max_ml_per_kg:g} mL/kg and never above the adult "
+                f"{adult_max:g} mL; ACR Manual, {pp.certainty.value.replace('_', ' ')}) instead of the adult protocol"]
+    volume = cap = None
+    if weight_kg is None:
+        basis = "not worked out: a child's dose is per kg and no weight was given"
+        warnings.append("Weight is needed for a child's dose (mL/kg)")
+    else:
+        volume, cap = paediatric.child_volume(weight_kg, pp.ml_per_kg, pp.max_ml_per_kg, adult_max,
+                                              pp.concentration_mg_i_ml, conc)
+        volume = round(volume, 1)
+        basis = (f"{pp.ml_per_kg:g} mL/kg × {weight_kg:g} kg (at {pp.concentration_mg_i_ml:g} mg I/mL), "
+                 f"at most {cap:.0f} mL")
+    if planned_volume_ml is not None:
+        volume, basis = float(planned_volume_ml), "planned volume"
+        if cap is not None and volume > cap:
+            warnings.append(f"Planned {volume:g} mL is above the child's maximum of {cap:.0f} mL")
+    gauge = iv_access.gauge if iv_access else None
+    site = iv_access.site if iv_access else None
+    flow, hand, why = paediatric.child_flow(protocol.flow_ml_s, gauge, site)
+    if planned_flow_ml_s is not None and not hand:
+        flow = planned_flow_ml_s
+    warnings.append(f"Flow: {why}")
+    iodine = dose_calc.iodine_grams(volume, conc) if volume is not None else None
+    idr = dose_calc.iodine_delivery_rate(conc, flow) if flow is not None else None
+    duration = dose_calc.injection_duration(volume, flow) if (volume is not None and flow is not None) else None
+    access_ok = access_msg = None
+    if not hand:
+        access_ok, access_msg = access_check(m.Route.intravenous, flow, iv_access, warnings)
+    else:
+        access_msg = "Hand injection: no power injector through this cannula or line"
+    rec = next(c for c in strengths if c.value == conc)
+    visc = viscosity_block(rec, flow, cite, warnings)
+    return m.DoseBlock(
+        agent=agent.id, concentration_mg_i_ml=conc, concentration_choice=choice, volume_ml=_r(volume),
+        volume_basis=basis, iodine_g=_r(iodine), flow_ml_s=flow, iodine_delivery_rate_g_s=_r(idr, 2),
+        duration_s=_r(duration), access_ok=access_ok, access_message=access_msg, viscosity_mpas=visc,
+        warnings=warnings, paediatric=True, hand_injection=hand)
+
+
+def intrathecal_block(agent: m.Agent, pol: m.Policy, planned_volume_ml: float | None,
+                      concentration_mg_i_ml: float | None,
+                      concentration_field: str = "planned_concentration_mg_i_ml") -> m.DoseBlock | None:
+    """An intrathecal dose: a strength labelled for intrathecal use only, and the total-iodine maximum."""
+    labelled = sorted(agent.intrathecal_strengths)
+    if not labelled:
+        return None
+    if concentration_mg_i_ml is None:
+        conc, choice = dose_calc.choose_concentration(labelled, dose_calc.DEFAULT_CONCENTRATION_MG_I_ML)
+        choice += " (strengths labelled for intrathecal use only)"
+    else:
+        if concentration_mg_i_ml not in labelled:
+            raise RangeError(f"{concentration_field}: {concentration_mg_i_ml:g} is not a strength of {agent.id} "
+                             f"labelled for intrathecal use; allowed: {', '.join(f'{v:g}' for v in labelled)}",
+                             field=concentration_field)
+        conc, choice = float(concentration_mg_i_ml), f"{concentration_mg_i_ml:g} mg I/mL: as requested"
+    cap_g = pol.intrathecal_max_iodine_g
+    cap_ml = cap_g * 1000.0 / conc
+    warnings = [f"Intrathecal: at most {cap_g:g} g iodine in all (adult; product labels, from memory) = "
+                f"{cap_ml:.0f} mL of {conc:g} mg I/mL"]
+    volume = planned_volume_ml
+    iodine = volume * conc / 1000.0 if volume is not None else None
+    if iodine is not None and iodine > cap_g:
+        warnings.append(f"Planned {volume:g} mL holds {iodine:.1f} g iodine: above the intrathecal maximum of "
+                        f"{cap_g:g} g - reduce it")
+    basis = "planned volume" if volume is not None else f"set by the radiologist, at most {cap_ml:.0f} mL"
+    return m.DoseBlock(
+        agent=agent.id, concentration_mg_i_ml=conc, concentration_choice=choice, volume_ml=_r(volume),
+        volume_basis=basis, iodine_g=_r(iodine), flow_ml_s=None, iodine_delivery_rate_g_s=None, duration_s=None,
+        access_ok=None, access_message=None, viscosity_mpas=None, warnings=warnings)
 
 
 def pick_strength(agent: m.Agent, strengths: list[m.Concentration], protocol: m.DoseProtocol | None,
-                  requested: float | None, field: str) -> tuple[float, str]:
-    """The strength to plan with and how it was picked (a requested one must be one of the agent's)."""
+                  requested: float | None, field: str, flow: float | None = None) -> tuple[float, str]:
+    """The strength to plan with and how it was picked (a requested one must be one of the agent's). With an
+    iodine delivery rate target and a flow, the strength nearest to the target (not the nearest below)."""
     values = [c.value for c in strengths]
     if requested is None:
+        if protocol is not None and protocol.iodine_delivery_rate_g_s is not None and flow is not None:
+            return dose_calc.choose_concentration_for_idr(values, flow, protocol.iodine_delivery_rate_g_s)
         return dose_calc.choose_concentration(values, protocol.concentration_mg_i_ml if protocol else None)
     if requested not in values:
         raise RangeError(f"{field}: {requested:g} is not a strength of {agent.id}; allowed: "
@@ -161,7 +254,8 @@ def add_plans(case: m.Case, knowledge: Any, decision: m.Decision) -> m.Decision:
 def _add_plans(case: m.Case, k: Any, decision: m.Decision) -> m.Decision:
     exam = k.exams[decision.exam]
     roles, doses, iodinated_intravascular = plan_doses(case, k, exam, decision)
-    renal = plan_renal(case, k, decision.renal, doses, iodinated_intravascular)
+    catheter = any(r.catheter_study and r.route in m.INTRAVASCULAR for r in exam.roles)
+    renal = plan_renal(case, k, decision.renal, doses, iodinated_intravascular, catheter)
     premed = plan_premedication(case, k, decision.premedication)
     met = plan_metformin(case, decision.metformin)
     return decision.model_copy(update=dict(roles=roles, renal=renal, premedication=premed, metformin=met))
@@ -176,28 +270,45 @@ def plan_doses(case: m.Case, k: Any, exam: m.Exam, decision: m.Decision):
     doses: list[tuple[m.ExamRole, m.DoseBlock]] = []
     iodinated_intravascular = False
     first_intravascular = True
+    child = p.age_years is not None and p.age_years < paediatric.ADULT_AGE_YEARS
     for role, rd in zip(exam.roles, decision.roles):
         chosen = next((o for o in rd.options if o.chosen), None)
         block = None
+        overrides = first_intravascular
         if chosen is not None and role.route in m.INTRAVASCULAR and chosen.family is m.Family.iodinated:
             iodinated_intravascular = True
-            overrides = first_intravascular
-            block = dose_block(
-                k.agents[chosen.agent], role.protocol, role.route, weight_kg=p.weight_kg,
-                planned_volume_ml=case.planned_volume_ml if overrides else None,
-                planned_flow_ml_s=case.planned_flow_ml_s if overrides else None,
-                concentration_mg_i_ml=case.planned_concentration_mg_i_ml if overrides else None,
-                iv_access=p.iv_access, cite=k.cite)
+            planned = dict(planned_volume_ml=case.planned_volume_ml if overrides else None,
+                           planned_flow_ml_s=case.planned_flow_ml_s if overrides else None,
+                           concentration_mg_i_ml=case.planned_concentration_mg_i_ml if overrides else None)
+            if child and role.route is m.Route.intravenous and role.protocol is not None:
+                block = child_dose_block(k.agents[chosen.agent], role.protocol, weight_kg=p.weight_kg,
+                                         iv_access=p.iv_access, cite=k.cite, **planned)
+            else:
+                block = dose_block(k.agents[chosen.agent], role.protocol, role.route, weight_kg=p.weight_kg,
+                                   iv_access=p.iv_access, cite=k.cite, **planned)
+                if block is not None and child:
+                    block = block.model_copy(update={"paediatric": True, "warnings": block.warnings + [
+                        "Patient under 18: a catheter study's volume is set per kg by the radiologist; the adult "
+                        "figures above are not a child's dose"]})
             if block is not None:
                 doses.append((role, block))
-        if role.route in m.INTRAVASCULAR:
+        elif chosen is not None and role.route is m.Route.intrathecal and chosen.family is m.Family.iodinated:
+            block = intrathecal_block(k.agents[chosen.agent], k.policy,
+                                      case.planned_volume_ml if overrides else None,
+                                      case.planned_concentration_mg_i_ml if overrides else None)
+        if role.route in m.INTRAVASCULAR or role.route is m.Route.intrathecal:
             first_intravascular = False
         new_roles.append(rd.model_copy(update={"dose": block}) if block is not None else rd)
     return new_roles, doses, iodinated_intravascular
 
 
-def plan_renal(case: m.Case, k: Any, r: m.RenalBlock, doses: list, iodinated_intravascular: bool) -> m.RenalBlock:
-    """Body surface area, absolute GFR, creatinine freshness, dose limits and the hydration plan."""
+def plan_renal(case: m.Case, k: Any, r: m.RenalBlock, doses: list, iodinated_intravascular: bool,
+               catheter_study: bool = False) -> m.RenalBlock:
+    """Body surface area, absolute GFR, creatinine freshness, dose limits and the hydration plan.
+
+    The dose limits are worked out for every catheter study (Cigarroa from weight and creatinine before any
+    volume is planned; a carbon dioxide study may be topped up with iodinated contrast) and for every
+    intravascular iodinated dose. The hydration regimen shown is the plan's own, so the two never differ."""
     pol: m.Policy = k.policy
     p = case.patient
     bsa = agfr = None
@@ -205,10 +316,15 @@ def plan_renal(case: m.Case, k: Any, r: m.RenalBlock, doses: list, iodinated_int
         bsa = body.bsa(p.weight_kg, p.height_cm, pol.bsa_formula)
         if r.egfr is not None:
             agfr = body.absolute_gfr(min(r.egfr, body.EGFR_RANGE[1]), bsa)
-    fresh, warnings = creatinine_freshness(case, pol, iodinated_intravascular)
-    dose_limits = _dose_limits(doses, p, pol, agfr) if iodinated_intravascular else None
+    agfr = _r(agfr)
+    fresh, warnings = creatinine_freshness(case, pol, iodinated_intravascular or catheter_study)
+    dose_limits = (_dose_limits(doses, p, pol, agfr, catheter_study)
+                   if iodinated_intravascular or catheter_study else None)
     plan = hydration_plan(case, pol, warnings) if r.hydration_indicated else None
-    return r.model_copy(update=dict(
+    regimen = r.hydration_regimen
+    if plan is not None:
+        regimen = hydration_words(plan, pol)
+    return r.model_copy(update=dict(hydration_regimen=regimen,
         bsa_m2=_r(bsa, 2), bsa_formula=pol.bsa_formula if bsa is not None else None,
         absolute_gfr_ml_min=_r(agfr), dose_limits=dose_limits, hydration_plan=plan, warnings=warnings, **fresh))
 
@@ -231,6 +347,10 @@ def creatinine_freshness(case: m.Case, pol: m.Policy, iodinated_intravascular: b
         egfr_known=p.egfr, egfr_low_below=pol.egfr_prophylaxis_consider_below)
     required = iodinated_intravascular and bool(because)
     warnings: list[str] = []
+    if iodinated_intravascular and not because and case.urgency is m.Urgency.emergency and p.creatinine is None \
+            and p.egfr is None:
+        warnings.append("Emergency exam and no kidney risk factor: do not wait for a creatinine (ACR Manual, from "
+                        "memory); send one with the cannula")
     if required:
         why = ", ".join(because)
         if p.creatinine is None and p.egfr is None:
@@ -266,14 +386,39 @@ def hydration_plan(case: m.Case, pol: m.Policy, warnings: list[str]) -> m.Hydrat
         volume_after_ml=round(hp.volume_after_ml), total_ml=round(hp.total_ml), warnings=hp.warnings)
 
 
+def hydration_words(plan: m.HydrationPlanBlock, pol: m.Policy) -> str:
+    """The hydration regimen in words, from the plan itself (same rate, volumes and timing)."""
+    when = ""
+    if plan.start_at is not None and plan.stop_at is not None:
+        when = f", {plan.start_at.strftime('%Y-%m-%d %H:%M')} to {plan.stop_at.strftime('%Y-%m-%d %H:%M')}"
+    return (f"{plan.fluid} IV {plan.rate_ml_h:g} mL/h ({plan.rate_ml_kg_h:g} mL/kg/h) from "
+            f"{pol.hydration_hours_before:g} h before to {pol.hydration_hours_after:g} h after the contrast{when}: "
+            f"{plan.volume_before_ml:g} mL before, {plan.volume_after_ml:g} mL after, {plan.total_ml:g} mL in all "
+            f"(policy {pol.id}; its regimen: {pol.hydration_regimen})")
+
+
+def elective_regimens(k: Any) -> list[m.Regimen]:
+    """The policy's elective regimens in the order they are tried (``elective_regimens``, else the default
+    regimen then every other regimen but the accelerated one, in file order)."""
+    pol = k.policy
+    if pol.elective_regimens:
+        ids = list(pol.elective_regimens)
+    else:
+        ids = [pol.premedication_regimen] + [r.id for r in pol.regimens if r.id not in
+                                             (pol.premedication_regimen, pol.premedication_accelerated_regimen)]
+    return [k.regimens[i] for i in ids]
+
+
 def plan_premedication(case: m.Case, k: Any, premed: m.PremedicationBlock) -> m.PremedicationBlock:
-    """The regimen as clock times from the exam time and the as-of time (accelerated when time is short)."""
+    """The regimen as clock times from the exam time and the as-of time: the first elective regimen that fits
+    the time left, else the accelerated one. An emergency is never delayed for premedication (the accelerated
+    regimen, or what fits; ACR Manual); only an elective exam is advised to move."""
     if not premed.indicated:
         return premed
     pol = k.policy
-    sched = timeline.premedication_schedule(k.regimens[pol.premedication_regimen],
+    sched = timeline.premedication_schedule(elective_regimens(k),
                                             k.regimens[pol.premedication_accelerated_regimen],
-                                            case.scheduled_at, case.as_of)
+                                            case.scheduled_at, case.as_of, urgency=case.urgency.value)
     return premed.model_copy(update=dict(
         regimen=sched.regimen.id, regimen_name=sched.regimen.name, lead_hours=_r(sched.lead_hours),
         schedule=[m.ScheduleItem(at=d.at, hours_before=None if math.isnan(d.hours_before) else
@@ -292,16 +437,26 @@ def plan_metformin(case: m.Case, met: m.MetforminBlock) -> m.MetforminBlock:
 
 
 def _dose_limits(doses: list[tuple[m.ExamRole, m.DoseBlock]], p: m.Patient, pol: m.Policy,
-                 agfr: float | None) -> m.DoseLimits:
+                 agfr: float | None, catheter_study: bool = False) -> m.DoseLimits:
     msgs: list[str] = []
+    if p.dialysis is m.Dialysis.dialysis_anuric:
+        # no kidney function to protect (ACR-NKF 2020): no g iodine / GFR, Cigarroa or "reduce the dose" advice
+        grams = [d.iodine_g for _, d in doses if d.iodine_g is not None]
+        return m.DoseLimits(iodine_g=_r(sum(grams)) if grams else None, iodine_g_per_gfr_max=pol.iodine_g_per_gfr_max,
+                            first_pass_iodine_g_per_gfr_max=pol.first_pass_iodine_g_per_gfr_max,
+                            messages=["Anuric on dialysis: no kidney function to protect - the kidney dose limits "
+                                      "(g iodine / GFR, Cigarroa) do not apply"])
     grams = [d.iodine_g for _, d in doses if d.iodine_g is not None]
     iodine = sum(grams) if grams else None
-    ratio = exceeded = vol_ratio = None
+    ratio = exceeded = vol_ratio = iodine_max = None
+    if agfr is not None:
+        iodine_max = _r(pol.iodine_g_per_gfr_max * max(agfr, limits.GFR_ML_MIN_RANGE[0]))
     if iodine is not None and agfr is not None:
-        ratio = limits.iodine_gfr_ratio(iodine, max(agfr, limits.GFR_ML_MIN_RANGE[0]))
+        # rounded first, so the ratio shown is the ratio compared with the policy level
+        ratio = round(limits.iodine_gfr_ratio(iodine, max(agfr, limits.GFR_ML_MIN_RANGE[0])), 2)
         exceeded = ratio >= pol.iodine_g_per_gfr_max
         if exceeded:
-            msgs.append(f"Iodine {iodine:.1f} g for an absolute GFR of {agfr:.0f} mL/min: ratio {ratio:.2f} reaches "
+            msgs.append(f"Iodine {iodine:g} g for an absolute GFR of {agfr:g} mL/min: ratio {ratio:.2f} reaches "
                         f"the policy level {pol.iodine_g_per_gfr_max:g} - consider a smaller dose")
     elif iodine is not None:
         msgs.append("g iodine / GFR not worked out: needs eGFR, weight and height")
@@ -312,13 +467,22 @@ def _dose_limits(doses: list[tuple[m.ExamRole, m.DoseBlock]], p: m.Patient, pol:
         vol_ratio = round(limits.volume_gfr_ratio(fp_volume, max(agfr, limits.GFR_ML_MIN_RANGE[0])), 2)
         cap = pol.first_pass_iodine_g_per_gfr_max
         if cap is not None:
-            fp_ratio = limits.iodine_gfr_ratio(fp_iodine, max(agfr, limits.GFR_ML_MIN_RANGE[0]))
+            fp_ratio = round(limits.iodine_gfr_ratio(fp_iodine, max(agfr, limits.GFR_ML_MIN_RANGE[0])), 2)
             if fp_ratio >= cap:
                 exceeded = True
                 msgs.append(f"First-pass dose: {fp_ratio:.2f} g iodine per mL/min GFR reaches the policy cap {cap:g} "
                             "(ESUR)")
     cig = cat_vol = cig_exceeded = None
     catheter = [d for role, d in doses if role.catheter_study]
+    if catheter_study and not catheter:
+        if p.weight_kg is not None and p.creatinine is not None:
+            scr = kidney.creatinine_to_mg_dl(p.creatinine.value, p.creatinine.unit)
+            cig = round(limits.cigarroa_max_volume_ml(p.weight_kg, scr))
+            top = f" and at most {iodine_max:g} g iodine (g iodine / GFR {pol.iodine_g_per_gfr_max:g})" if iodine_max else ""
+            msgs.append(f"Catheter study: any iodinated contrast (including a top-up of a carbon dioxide study) "
+                        f"stays within the Cigarroa maximum of {cig:g} mL{top}")
+        else:
+            msgs.append("Cigarroa limit not worked out: needs weight and serum creatinine")
     if catheter:
         vols = [d.volume_ml for d in catheter if d.volume_ml is not None]
         cat_vol = sum(vols) if vols else None
@@ -336,5 +500,5 @@ def _dose_limits(doses: list[tuple[m.ExamRole, m.DoseBlock]], p: m.Patient, pol:
     return m.DoseLimits(
         iodine_g=_r(iodine), iodine_g_per_gfr=_r(ratio, 2), iodine_g_per_gfr_max=pol.iodine_g_per_gfr_max,
         iodine_g_per_gfr_exceeded=exceeded, first_pass_iodine_g_per_gfr_max=pol.first_pass_iodine_g_per_gfr_max,
-        volume_ml_per_gfr=vol_ratio, cigarroa_max_ml=cig, catheter_volume_ml=_r(cat_vol),
+        volume_ml_per_gfr=vol_ratio, cigarroa_max_ml=cig, catheter_volume_ml=_r(cat_vol), iodine_g_max=iodine_max,
         cigarroa_exceeded=cig_exceeded, messages=msgs)

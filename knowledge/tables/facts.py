@@ -50,6 +50,8 @@ for _name, _field in m.Patient.model_fields.items():
     else:
         _add(f"patient.{_name}", "number", _field.description or _name)
 
+_add("case.urgency", "enum", "elective, urgent or emergency", _enum(m.Urgency))
+_add("history.delayed_worst", "enum", "Worst earlier delayed (mostly skin) reaction to any agent", SEVERITIES)
 _add("renal.egfr", "number", "eGFR in use, mL/min/1.73 m² (unknown if it cannot be worked out)")
 _add("renal.category", "enum", "KDIGO 2012 G category", ("G1", "G2", "G3a", "G3b", "G4", "G5"))
 _add("history.allergic_like_worst", "enum", "Worst earlier allergic-like reaction to any agent", SEVERITIES)
@@ -80,6 +82,14 @@ _add("history.allergic_like_same_family", "enum", "Worst allergic-like reaction 
 _add("history.physiologic_same_family", "enum", "Worst physiologic reaction to this agent's family",
      SEVERITIES, "agent")
 _add("history.culprit_agent", "bool", "This very agent caused an earlier reaction", scope="agent")
+_add("history.culprit_severity", "enum", "Worst earlier reaction (any kind) this very agent caused",
+     SEVERITIES, "agent")
+_add("history.culprit_allergic_severity", "enum",
+     "Worst earlier allergic-like or delayed reaction this very agent caused", SEVERITIES, "agent")
+_add("history.delayed_same_family", "enum", "Worst delayed (mostly skin) reaction to this agent's family",
+     SEVERITIES, "agent")
+_add("history.breakthrough_same_family", "bool",
+     "An allergic-like reaction to this agent's family happened despite premedication", scope="agent")
 
 
 def catalogue_rows() -> list[dict[str, Any]]:

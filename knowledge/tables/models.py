@@ -140,6 +140,17 @@ class Severity(str, Enum):
 class ReactionKind(str, Enum):
     allergic_like = "allergic_like"
     physiologic = "physiologic"
+    #: delayed (hours to days, mostly skin, T-cell mediated); severe = a severe cutaneous adverse reaction
+    #: such as Stevens-Johnson syndrome / toxic epidermal necrolysis or DRESS (ACR-AAAAI 2025, from memory)
+    delayed = "delayed"
+
+
+class Urgency(str, Enum):
+    """How soon the exam must be done (changes premedication, creatinine and rescheduling advice)."""
+
+    elective = "elective"
+    urgent = "urgent"
+    emergency = "emergency"
 
 
 class Dialysis(str, Enum):
@@ -212,6 +223,9 @@ class Agent(Strict):
     ionicity: Ionicity | None = Field(None, description="For iodinated agents: ionic or non_ionic")
     concentrations: list[Concentration] = Field(default_factory=list, description="Available strengths")
     routes: list[Route] = Field(description="Routes the agent is labelled or established for")
+    intrathecal_strengths: list[float] = Field(
+        default_factory=list, description="Strengths (mg I/mL) labelled for intrathecal use; only these are planned "
+                                          "intrathecally")
     notes: str = Field("", description="Short remarks shown in the knowledge browser")
     sources: list[SourceRef] = Field(default_factory=list, description="Where the route and class facts come from")
     certainty: Certainty = Field(Certainty.verified, description="How the agent facts are known")
@@ -238,6 +252,20 @@ class RouteCompatibility(Strict):
     note: str = Field("", description="Why the list is what it is")
 
 
+class PaediatricProtocol(Strict):
+    """Intravenous iodinated dose for patients under 18: weight-based, capped per kg and absolutely; the flow
+    is set by the cannula (ACR Manual, contrast media in children; figures from memory)."""
+
+    ml_per_kg: float = Field(2.0, description="Volume per kg of a 300 mg I/mL agent (ACR Manual: usually 1.5-2 mL/kg)",
+                             gt=0, le=4)
+    max_ml_per_kg: float = Field(3.0, description="Cap per kg (ACR Manual: rarely above 3 mL/kg)", gt=0, le=5)
+    max_volume_ml: float | None = Field(
+        None, description="Absolute cap, mL (default: the adult protocol's maximum - never more than the adult dose)",
+        gt=0, le=300)
+    concentration_mg_i_ml: float = Field(300, description="Strength the per-kg volumes refer to, mg I/mL", gt=0)
+    certainty: Certainty = Field(Certainty.from_memory, description="How the figures are known")
+
+
 class DoseProtocol(Strict):
     """A role's default intravenous dose protocol (used by the dose calculators)."""
 
@@ -250,8 +278,13 @@ class DoseProtocol(Strict):
     )
     duration_offset_s: float = Field(0, description="Seconds added to the scan duration for volume", ge=0)
     concentration_mg_i_ml: float | None = Field(None, description="Preferred strength, mg I/mL", gt=0)
+    iodine_delivery_rate_g_s: float | None = Field(
+        None, description="Iodine delivery rate target, g I/s (CT angiography): the strength whose rate at the planned "
+                          "flow is nearest to it is chosen", gt=0, le=4)
     certainty: Certainty = Field(Certainty.common_practice, description="How the protocol figures are known")
     source: SourceRef | None = Field(None, description="Source of the protocol figures, if any")
+    paediatric: PaediatricProtocol | None = Field(
+        None, description="Protocol for patients under 18 (default: the ACR Manual figures, from memory)")
 
 
 class ExamRole(Strict):
@@ -365,6 +398,9 @@ Not.model_rebuild()
 
 class Effect(Strict):
     verdict: Verdict | None = Field(None, description="Verdict for the agent (agent-scope rules only)")
+    alert: Literal["stop", "warn"] | None = Field(
+        None, description="Also raise a decision-level alert of this level when the rule fires on a planned agent "
+                          "(agent scope) or on the case (case scope)")
     actions: list[str] = Field(default_factory=list, description="Steps to take, shown under the agent")
     flags: list[Flag] = Field(default_factory=list, description="Decision-level consequences")
     caution: bool = Field(False, description="Also list the rule's text among the decision's cautions")
@@ -432,6 +468,15 @@ class Policy(Strict):
     )
     premedication_regimen: str = Field(description="Id of the default elective premedication regimen")
     premedication_accelerated_regimen: str = Field(description="Id of the accelerated regimen")
+    elective_regimens: list[str] | None = Field(
+        None, description="Elective regimens in the order they are tried (each is laid out if enough time is left) "
+                          "before the accelerated one; default: premedication_regimen, then every other regimen "
+                          "but the accelerated one, in file order")
+    egfr_discordance_percent: float = Field(
+        20, description="An entered eGFR and one computed from the creatinine that differ by more than this percent "
+                        "of the lower raise an alert and the lower is used (common practice)", gt=0, le=100)
+    intrathecal_max_iodine_g: float = Field(
+        3.0, description="Total iodine per intrathecal procedure, adult, g (product labels, from memory)", gt=0, le=10)
     regimens: list[Regimen] = Field(description="Premedication regimens on offer")
     hydration_regimen: str = Field(description="Hydration regimen shown when hydration is indicated")
     radioiodine_delay_weeks: float = Field(
@@ -489,9 +534,14 @@ class Creatinine(Strict):
 
 class PriorReaction(Strict):
     agent_family: Family = Field(description="Family of the agent that caused it")
-    kind: ReactionKind = Field(description="allergic_like or physiologic")
+    kind: ReactionKind = Field(
+        description="allergic_like or physiologic (immediate, within an hour), or delayed (hours to days, mostly "
+                    "skin; severe = Stevens-Johnson syndrome / toxic epidermal necrolysis, DRESS or another severe "
+                    "cutaneous adverse reaction)")
     severity: Literal["mild", "moderate", "severe"] = Field(description="mild, moderate or severe")
     agent: str | None = Field(None, description="The culprit agent's id, if known")
+    despite_premedication: bool = Field(
+        False, description="A breakthrough reaction: it happened although the patient had been premedicated")
 
 
 class IVAccess(Strict):
@@ -517,7 +567,17 @@ class Patient(Strict):
     tracheoesophageal_fistula_suspected: bool = Field(False, description="Suspected tracheo-oesophageal fistula")
     prior_reactions: list[PriorReaction] = Field(default_factory=list, description="Earlier contrast reactions")
     takes_metformin: bool = Field(False, description="Takes metformin")
-    hyperthyroidism: bool = Field(False, description="Hyperthyroidism, nodular goitre or latent Graves' disease")
+    hyperthyroidism: bool = Field(
+        False, description="Thyroid at risk: nodular goitre, latent (subclinical) hyperthyroidism or latent Graves' "
+                           "disease (manifest hyperthyroidism is its own field)")
+    manifest_hyperthyroidism: bool = Field(False, description="Manifest (overt) hyperthyroidism now")
+    pheochromocytoma: bool = Field(False, description="Known or suspected pheochromocytoma or paraganglioma")
+    colitis_or_diverticulitis: bool = Field(False, description="Acute colitis or acute diverticulitis")
+    toxic_megacolon: bool = Field(False, description="Toxic megacolon, known or suspected")
+    recent_deep_biopsy: bool = Field(
+        False, description="Deep colonic biopsy, polypectomy or colonic surgery in the days before the exam")
+    bowel_fistula_suspected: bool = Field(False, description="Suspected fistula from the bowel (enteric fistula)")
+    obstruction_high_grade: bool = Field(False, description="The bowel obstruction is high-grade (complete or near)")
     radioiodine_planned: bool = Field(False, description="Radioiodine therapy or scan planned")
     pregnant: bool = Field(False, description="Pregnant")
     breastfeeding: bool = Field(False, description="Breastfeeding")
@@ -545,6 +605,12 @@ class Case(Strict):
     planned_concentration_mg_i_ml: float | None = Field(
         None, description="Requested strength of the chosen agent, mg I/mL (must be one of its strengths)", gt=0, le=480
     )
+    urgency: Urgency = Field(
+        Urgency.elective, description="elective, urgent or emergency: an emergency is never delayed for "
+                                      "premedication or a creatinine; only elective exams are advised to move")
+    override_culprit: bool = Field(
+        False, description="Explicit, visible override: plan the requested agent although it caused an earlier "
+                           "moderate or severe reaction (a stop alert stays on the decision)")
 
 
 # --------------------------------------------------------------------------------------------------
@@ -600,6 +666,10 @@ class DoseBlock(Strict):
     access_message: str | None = Field(None, description="Why the access is or is not fit (ACR Manual wording)")
     viscosity_mpas: Viscosity | None = Field(None, description="Viscosity of the strength at 20 and 37 °C")
     warnings: list[str] = Field(default_factory=list, description="Caps, missing data and other cautions")
+    iodine_delivery_rate_target_g_s: float | None = Field(
+        None, description="The protocol's iodine delivery rate target, g I/s (CT angiography)")
+    paediatric: bool = Field(False, description="Worked out with the paediatric protocol (patient under 18)")
+    hand_injection: bool = Field(False, description="Inject by hand (small cannula or line not rated for power)")
 
 
 class RoleDecision(Strict):
@@ -623,6 +693,9 @@ class DoseLimits(Strict):
         None, description="Policy cap for first-pass intra-arterial doses (ESUR), if the policy sets one"
     )
     volume_ml_per_gfr: float | None = Field(None, description="mL contrast / absolute GFR (ESUR first-pass < 3.0)")
+    iodine_g_max: float | None = Field(
+        None, description="Most grams of iodine the policy's g iodine / GFR level allows for this patient (also for a "
+                          "carbon dioxide study topped up with iodinated contrast)")
     cigarroa_max_ml: float | None = Field(None, description="Cigarroa maximum volume for catheter studies, mL")
     catheter_volume_ml: float | None = Field(None, description="Planned volume of the catheter study roles, mL")
     cigarroa_exceeded: bool | None = Field(None, description="The planned catheter volume is above the Cigarroa limit")
@@ -648,6 +721,8 @@ class RenalBlock(Strict):
     hydration_indicated: bool
     hydration_regimen: str | None = Field(None, description="Hydration regimen of the policy, when indicated")
     note: str | None = Field(None, description="Why no eGFR could be worked out, or how it was")
+    egfr_computed: float | None = Field(
+        None, description="eGFR computed from the creatinine when an eGFR was also entered (one decimal)")
     bsa_m2: float | None = Field(None, description="Body surface area, m² (needs weight and height)")
     bsa_formula: str | None = Field(None, description="du_bois or mosteller (policy bsa_formula)")
     absolute_gfr_ml_min: float | None = Field(None, description="eGFR · BSA / 1.73, mL/min")
@@ -692,9 +767,25 @@ class MetforminBlock(Strict):
     recheck_at: dt.datetime | None = Field(None, description="When kidney function is re-checked before restarting")
 
 
+class Alert(Strict):
+    """A decision-level alert shown above everything else (dashboard and protocol note)."""
+
+    level: Literal["stop", "warn"] = Field(
+        description="stop: the plan as asked must not go ahead; warn: it may, with the named risk in mind")
+    text: str = Field(description="What is wrong and what to do, in one or two sentences")
+    rule: str = Field(description="Id of the rule or check that raised it")
+    source: str = Field(description="Sources as 'title, issuer year, section', or 'common practice'/'from memory'")
+
+
 class Decision(Strict):
     exam: str
     exam_name: str
+    alerts: list[Alert] = Field(default_factory=list, description="Blocking (stop) and warning alerts, most severe first")
+    cannot_proceed_reason: str | None = Field(
+        None, description="Why the exam as requested cannot be done with contrast (every agent of a required role "
+                          "is contraindicated); null otherwise")
+    exam_notes: str = Field("", description="The exam's own safety and technique notes")
+    urgency: Urgency = Field(Urgency.elective, description="The case's urgency the advice was given for")
     contrast_needed: bool = Field(description="True if any role is required")
     contrast: ContrastUse
     roles: list[RoleDecision]
