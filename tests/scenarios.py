@@ -11,6 +11,14 @@ A vector: ``id``, ``source`` (the published source of the expectation, or "commo
 - ``actions_contain``: {ROLE: {agent: [substrings of its actions]}}
 - ``blocks``: {"renal.hydration_indicated": true, "premedication.indicated": false, "metformin.hold": true, ...}
 - ``cautions_contain``: [substrings]; ``cautions_lack``: [substrings]
+- ``blocks_contain``: {"renal.note": substring, "premedication.warnings": substring, ...} (lists are joined)
+- ``alerts_contain``: ["stop: substring", "warn: substring", "substring"]; ``alerts_lack``: [substrings];
+  ``no_alerts``: true
+- ``chosen``: {ROLE: agent} — the option the plan uses; ``no_chosen``: [ROLE] — no option is chosen
+- ``cannot_proceed``: substring of ``cannot_proceed_reason`` (or null: there is none)
+- ``dose``: {ROLE: {field: value}} — fields of the role's dose block (numbers within 0.05; null allowed);
+  ``dose_contain``: {ROLE: {field: substring}} (lists joined); ``no_dose``: [ROLE]
+- ``exam_notes_contain``: [substrings]
 """
 
 from __future__ import annotations
@@ -107,6 +115,68 @@ def check(decision, expect: dict[str, Any]) -> list[str]:
             ok = got == wanted
         if not ok:
             problems.append(f"{dotted} is {got!r}, expected {wanted!r}")
+    for dotted, part in expect.get("blocks_contain", {}).items():
+        got = block_value(decision, dotted)
+        text = " | ".join(got) if isinstance(got, list) else str(got)
+        if part.lower() not in text.lower():
+            problems.append(f"{dotted} ({text!r}) does not contain {part!r}")
+    alerts = [(a.level, a.text.lower()) for a in decision.alerts]
+    for want in expect.get("alerts_contain", []):
+        level, _, part = want.partition(": ") if want.split(": ", 1)[0] in ("stop", "warn") else ("", "", want)
+        if not any((not level or lv == level) and part.lower() in text for lv, text in alerts):
+            problems.append(f"no {level or 'any'} alert containing {part!r} (alerts: {alerts!r})")
+    for part in expect.get("alerts_lack", []):
+        if any(part.lower() in text for _, text in alerts):
+            problems.append(f"an alert contains {part!r}")
+    if expect.get("no_alerts") and alerts:
+        problems.append(f"alerts raised: {alerts!r}")
+    for key, agent in expect.get("chosen", {}).items():
+        r = role(key)
+        if r is not None:
+            got = [o.agent for o in r.options if o.chosen]
+            if got != [agent]:
+                problems.append(f"{key}: chosen {got}, expected {agent}")
+    for key in expect.get("no_chosen", []):
+        r = role(key)
+        if r is not None and any(o.chosen for o in r.options):
+            problems.append(f"{key}: {[o.agent for o in r.options if o.chosen]} chosen, expected none")
+    if "cannot_proceed" in expect:
+        want, got = expect["cannot_proceed"], decision.cannot_proceed_reason
+        if want is None and got is not None:
+            problems.append(f"cannot_proceed_reason is {got!r}, expected none")
+        elif want is not None and (got is None or want.lower() not in got.lower()):
+            problems.append(f"cannot_proceed_reason is {got!r}, expected one containing {want!r}")
+    for key, fields in expect.get("dose", {}).items():
+        r = role(key)
+        if r is None:
+            continue
+        if r.dose is None:
+            problems.append(f"{key}: no dose block")
+            continue
+        for name, wanted in fields.items():
+            got = getattr(r.dose, name)
+            ok = (got is None and wanted is None) or (
+                isinstance(wanted, (int, float)) and not isinstance(wanted, bool) and got is not None
+                and abs(got - wanted) <= 0.05) or got == wanted
+            if not ok:
+                problems.append(f"{key}: dose.{name} is {got!r}, expected {wanted!r}")
+    for key, fields in expect.get("dose_contain", {}).items():
+        r = role(key)
+        if r is None or r.dose is None:
+            problems.append(f"{key}: no dose block")
+            continue
+        for name, part in fields.items():
+            got = getattr(r.dose, name)
+            text = " | ".join(got) if isinstance(got, list) else str(got)
+            if part.lower() not in text.lower():
+                problems.append(f"{key}: dose.{name} ({text!r}) does not contain {part!r}")
+    for key in expect.get("no_dose", []):
+        r = role(key)
+        if r is not None and r.dose is not None:
+            problems.append(f"{key}: a dose is planned ({r.dose.agent}), expected none")
+    for part in expect.get("exam_notes_contain", []):
+        if part.lower() not in decision.exam_notes.lower():
+            problems.append(f"exam notes lack {part!r}")
     joined = " | ".join(decision.cautions).lower()
     for part in expect.get("cautions_contain", []):
         if part.lower() not in joined:

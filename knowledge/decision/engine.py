@@ -299,7 +299,8 @@ def choose(case: m.Case, role: m.ExamRole, scored: list[_Scored], raised: _Raise
     A requested agent is used unless it is ``contraindicated`` (then no agent: a stop alert), except that the
     case's explicit ``override_culprit`` lets a culprit agent be planned when only the culprit rules rule it
     out (a stop alert stays). A ``not_advised`` request is used with a warn alert. With no request, the best
-    ranked agent that is neither contraindicated nor the culprit of an earlier reaction."""
+    ranked agent the exam lists for the role that is neither contraindicated nor the culprit of an earlier
+    reaction."""
     ids = {s.agent.id: s for s in scored}
     cx = m.Verdict.contraindicated
     if case.agent in ids:
@@ -324,9 +325,10 @@ def choose(case: m.Case, role: m.ExamRole, scored: list[_Scored], raised: _Raise
             raised.alert("warn", f"{s.agent.name} was requested for the {_role_words(role)} but is not advised: "
                          f"{text}", rules, source)
         return s.agent.id
-    best = next((o for o in scored if o.verdict is not cx and not o.culprit), None)
+    # the default is one of the agents the exam lists for the role (never water in a gas-distension role)
+    best = next((o for o in scored if o.verdict is not cx and not o.culprit and o.agent.id in role.agents), None)
     if best is None:
-        if scored and all(o.verdict is cx or o.culprit for o in scored):
+        if scored:
             rs = [r for o in scored if o.agent.id in role.agents for r in o.reasons
                   if r.verdict is cx] or [r for o in scored for r in o.reasons if r.verdict is cx]
             why = "; ".join(dict.fromkeys(r.text for r in rs)) or "every usable agent caused an earlier reaction"
