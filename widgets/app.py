@@ -178,6 +178,14 @@ class ContrastAidApp(w.VBox):
                 self.exam.agent.value = data["agent"]
             else:
                 notes.append(f"agent: {data['agent']!r} from the link is not an agent of this exam")
+        if data.get("urgency"):
+            if data["urgency"] in [v for _, v in self.exam.urgency.options]:
+                self.exam.urgency.value = data["urgency"]
+            else:
+                notes.append(f"urgency: {data['urgency']!r} from the link is not allowed; allowed: elective, "
+                             "urgent, emergency")
+        if data.get("override_culprit") is True:
+            self.exam.override_culprit.value = True
         if data.get("scheduled_at"):
             self.exam.scheduled.value = data["scheduled_at"].replace("T", " ")
         if data.get("as_of"):

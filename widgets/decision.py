@@ -49,6 +49,22 @@ def card_html(opt: m.Option, agent: m.Agent, ruled_out: bool) -> str:
     return f"<div class='ca-option ca-card ca-v-{opt.verdict.value}{chosen}'>{head}{body}</div>"
 
 
+#: alert level -> (glyph, word, border colour): words and glyph first, colour (Okabe-Ito ramp) only a third cue
+ALERT_LOOK = {"stop": ("⛔", "STOP", "#3a3a3a"), "warn": ("⚠", "WARNING", "#CC79A7")}
+
+
+def alerts_html(d: m.Decision) -> str:
+    """The decision's alerts as banners (class ``ca-alert``, one per alert, most severe first)."""
+    out = []
+    for a in getattr(d, "alerts", []) or []:
+        glyph, word, colour = ALERT_LOOK[a.level]
+        out.append(f"<div class='ca-alert ca-alert-{a.level}' role='alert' style='border:2px solid {colour};"
+                   f"border-left-width:8px;border-radius:4px;padding:6px 10px;margin:4px 0;background:#fff'>"
+                   f"<b><span aria-hidden='true'>{glyph}</span> {word}</b> {e(a.text)}"
+                   f"<br><span class='ca-source'>Source: {e(a.source)} · rule {e(a.rule)}</span></div>")
+    return "".join(out)
+
+
 def _set(widget: w.HTML, value: str) -> None:
     if widget.value != value:
         widget.value = value
@@ -77,11 +93,13 @@ class DecisionPanel(w.VBox):
         self.add_class("ca-decision")
         self.banner = w.HTML("", layout=w.Layout(display="none"))
         self.banner.add_class("ca-stale-banner")
+        self.alerts = w.HTML("")
+        self.alerts.add_class("ca-alerts")
         self.summary = w.HTML("")
         self.roles_box = w.VBox()
         self.blocks = w.HTML("")
         self._sections: list[RoleSection] = []
-        self.body = w.VBox([self.summary, self.roles_box, self.blocks])
+        self.body = w.VBox([self.alerts, self.summary, self.roles_box, self.blocks])
         self.children = [self.banner, self.body]
         self.stale = False
 
@@ -109,7 +127,13 @@ class DecisionPanel(w.VBox):
             need = "Contrast is required for this exam."
         else:
             need = "Contrast is optional for this exam: the clinical question decides."
-        self.summary.value = f"<h3>{e(d.exam_name)}</h3><div>{e(need)}</div>"
+        _set(self.alerts, alerts_html(d))
+        notes = getattr(d, "exam_notes", "")
+        urgency = getattr(d, "urgency", m.Urgency.elective)
+        self.summary.value = (f"<h3>{e(d.exam_name)}</h3><div>{e(need)}"
+                              + (f" Urgency: <b>{e(urgency.value)}</b>." if urgency is not m.Urgency.elective else "")
+                              + "</div>"
+                              + (f"<div class='ca-exam-notes'><b>Exam notes</b>: {e(notes)}</div>" if notes else ""))
         sections = []
         for i, role in enumerate(d.roles):
             while len(self._sections) <= i:
@@ -122,7 +146,9 @@ class DecisionPanel(w.VBox):
                 out = opt.verdict.severity >= m.Verdict.not_advised.severity
                 (ruled if out else usable).append(card_html(opt, k.agents[opt.agent], out))
             sec.cards = usable + ruled
-            _set(sec.usable, "<div class='ca-cards'>" + "".join(usable) + "</div>" if usable else
+            none = "" if any(o.chosen for o in role.options) or not usable else \
+                "<div class='ca-hint'><b>No agent is planned for this role</b> (see the alert above).</div>"
+            _set(sec.usable, none + "<div class='ca-cards'>" + "".join(usable) + "</div>" if usable else
                  "<div class='ca-hint'>No agent is usable for this role for this patient.</div>")
             _set(sec.ruled, (f"<div class='ca-hint'>Ruled out here ({len(ruled)}); open one to see why.</div>"
                              "<div class='ca-ruled-list'>" + "".join(ruled) + "</div>") if ruled else "")

@@ -71,13 +71,23 @@ class ExamPicker(w.VBox):
         self.as_of_source.add_class("ca-as-of-source")
         self.as_of_error = _error_label()
         self.error = _error_label()
+        self.urgency = w.Dropdown(description="Urgency", options=[(u.value, u.value) for u in m.Urgency],
+                                  style=_DESC, layout=w.Layout(width="260px"))
+        self.urgency.add_class("ca-urgency")
+        self.override_culprit = w.Checkbox(
+            description="Override: plan the requested agent even though it caused an earlier reaction",
+            indent=False, layout=w.Layout(width="auto"))
+        self.override_culprit.add_class("ca-override-culprit")
         head = w.HTML('<div class="ca-group-head">Exam</div>')
-        self.children = [head, self.filter, self.select, self.purpose, self.agent, self.scheduled,
+        self.children = [head, self.filter, self.select, self.purpose, self.agent, self.override_culprit,
+                         self.urgency, self.scheduled,
                          self.scheduled_error, w.HBox([self.as_of, self.as_of_now]), self.as_of_source,
                          self.as_of_error, self.error]
         self.filter.observe(self._on_filter, "value")
         self.select.observe(self._on_select, "value")
         self.agent.observe(self._on_agent, "value")
+        self.urgency.observe(self._on_agent, "value")
+        self.override_culprit.observe(self._on_agent, "value")
         self.scheduled.observe(self._on_agent, "value")
         self.as_of.observe(self._on_as_of, "value")
         self.as_of_now.on_click(lambda b: self.set_as_of(None))
@@ -170,6 +180,10 @@ class ExamPicker(w.VBox):
         out: dict[str, Any] = {"exam": self.select.value or ""}
         if self.agent.value:
             out["agent"] = self.agent.value
+        if self.override_culprit.value:
+            out["override_culprit"] = True
+        if self.urgency.value != m.Urgency.elective.value:
+            out["urgency"] = self.urgency.value
         when = self.scheduled.value.strip()
         if when:
             out["scheduled_at"] = when.replace(" ", "T", 1) if len(when) > 10 else when
@@ -197,14 +211,16 @@ class ReactionRow(w.HBox):
         small = lambda px: w.Layout(width=px)  # noqa: E731
         self.family = w.Dropdown(options=[(f.value, f.value) for f in m.Family], value="iodinated",
                                  layout=small("95px"))
-        self.kind = w.Dropdown(options=[("allergic-like", "allergic_like"), ("physiologic", "physiologic")],
+        self.kind = w.Dropdown(options=[("allergic-like", "allergic_like"), ("physiologic", "physiologic"),
+                                        ("delayed (skin, hours-days)", "delayed")],
                                layout=small("110px"))
         self.severity = w.Dropdown(options=["mild", "moderate", "severe"], layout=small("90px"))
         self.agent = w.Dropdown(options=self._agents("iodinated"), layout=small("120px"))
         self.remove = w.Button(description="remove", tooltip="remove this reaction", layout=small("70px"))
-        self.children = [self.family, self.kind, self.severity, self.agent, self.remove]
+        self.breakthrough = w.Checkbox(description="despite premedication", indent=False, layout=small("170px"))
+        self.children = [self.family, self.kind, self.severity, self.agent, self.breakthrough, self.remove]
         self.family.observe(self._on_family, "value")
-        for c in (self.kind, self.severity, self.agent):
+        for c in (self.kind, self.severity, self.agent, self.breakthrough):
             c.observe(lambda ch: on_change(), "value")
         self._on_change = on_change
         self.remove.on_click(lambda b: on_remove(self))
@@ -222,6 +238,8 @@ class ReactionRow(w.HBox):
         out = {"agent_family": self.family.value, "kind": self.kind.value, "severity": self.severity.value}
         if self.agent.value:
             out["agent"] = self.agent.value
+        if self.breakthrough.value:
+            out["despite_premedication"] = True
         return out
 
 
@@ -276,9 +294,12 @@ class ReactionEditor(w.VBox):
 #: the boolean patient factors, by group (Patient field names)
 GROUP_FLAGS = {
     "kidney": ["acute_kidney_injury", "kidney_disease_history", "diabetes"],
-    "gut": ["perforation_suspected", "aspiration_risk", "tracheoesophageal_fistula_suspected"],
+    "gut": ["perforation_suspected", "aspiration_risk", "tracheoesophageal_fistula_suspected",
+            "colitis_or_diverticulitis", "toxic_megacolon", "recent_deep_biopsy", "bowel_fistula_suspected",
+            "obstruction_high_grade"],
     "other": ["takes_metformin", "hyperthyroidism", "radioiodine_planned", "pregnant", "breastfeeding",
-              "shellfish_or_iodine_allergy", "heart_failure", "myasthenia_gravis", "inpatient"],
+              "shellfish_or_iodine_allergy", "heart_failure", "myasthenia_gravis", "inpatient",
+              "manifest_hyperthyroidism", "pheochromocytoma"],
 }
 FLAG_LABEL = {
     "acute_kidney_injury": "Acute kidney injury now",
@@ -288,7 +309,7 @@ FLAG_LABEL = {
     "aspiration_risk": "Swallowing difficulty or aspiration risk",
     "tracheoesophageal_fistula_suspected": "Tracheo-oesophageal fistula suspected",
     "takes_metformin": "Takes metformin",
-    "hyperthyroidism": "Hyperthyroidism, nodular goitre or latent Graves' disease",
+    "hyperthyroidism": "Nodular goitre, latent hyperthyroidism or latent Graves' disease",
     "radioiodine_planned": "Radioiodine therapy or scan planned",
     "pregnant": "Pregnant",
     "breastfeeding": "Breastfeeding",
@@ -296,6 +317,13 @@ FLAG_LABEL = {
     "heart_failure": "Heart failure that limits IV fluids",
     "myasthenia_gravis": "Myasthenia gravis",
     "inpatient": "Inpatient or acutely ill",
+    "colitis_or_diverticulitis": "Acute colitis or diverticulitis",
+    "toxic_megacolon": "Toxic megacolon",
+    "recent_deep_biopsy": "Deep biopsy, polypectomy or colonic surgery in the last days",
+    "bowel_fistula_suspected": "Bowel fistula suspected",
+    "obstruction_high_grade": "Obstruction is high-grade",
+    "manifest_hyperthyroidism": "Manifest (overt) hyperthyroidism now",
+    "pheochromocytoma": "Pheochromocytoma or paraganglioma",
 }
 IV_SITES = ["antecubital", "forearm", "hand_or_wrist", "central_power_injectable", "central_not_power_rated"]
 
@@ -464,6 +492,8 @@ class PatientPanel(w.VBox):
                         self._choose(getattr(row, attr), str(r[key]), f"patient.prior_reactions.{key}", notes)
                 if r.get("agent"):
                     self._choose(row.agent, str(r["agent"]), "patient.prior_reactions.agent", notes)
+                if r.get("despite_premedication") is True:
+                    row.breakthrough.value = True
         finally:
             self._holding = False
         self.revision += 1

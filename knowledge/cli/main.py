@@ -98,6 +98,7 @@ def cmd_exams(args: argparse.Namespace) -> int:
             "contrast": e.contrast.value,
             "purpose": e.purpose,
             "routes": [r.route.value for r in e.roles],
+            "notes": e.notes,
         }
         for e in k.tables.exams
     ]

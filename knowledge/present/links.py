@@ -45,7 +45,17 @@ FLAGS: dict[str, str] = {
     "inpatient": "inpatient",
     "kidney_disease": "kidney_disease_history",
     "diabetes": "diabetes",
+    "manifest_hyperthyroid": "manifest_hyperthyroidism",
+    "pheo": "pheochromocytoma",
+    "colitis": "colitis_or_diverticulitis",
+    "megacolon": "toxic_megacolon",
+    "deep_biopsy": "recent_deep_biopsy",
+    "bowel_fistula": "bowel_fistula_suspected",
+    "high_grade": "obstruction_high_grade",
 }
+
+#: the value of a reaction's fifth part that marks a breakthrough reaction (despite premedication)
+BREAKTHROUGH = "breakthrough"
 
 _TRUE = {"1", "true", "yes", "on", "y"}
 _FALSE = {"0", "false", "no", "off", "n", ""}
@@ -67,7 +77,8 @@ def case_from_query(query: str) -> dict[str, Any]:
     ``creatinine`` with ``unit`` (``mg/dL``
     default, or ``umol/L``) and ``measured`` (the sample's date),
     the short keys of :data:`SCALARS` and :data:`FLAGS`, ``iv_gauge`` with ``iv_site``, and
-    ``reaction=FAMILY:KIND:SEVERITY[:AGENT]`` (repeatable) for prior reactions.
+    ``reaction=FAMILY:KIND:SEVERITY[:AGENT[:breakthrough]]`` (repeatable) for prior reactions, ``urgency``
+    and ``override=1`` (the explicit culprit override).
     """
     pairs = parse_qsl((query or "").lstrip("?"), keep_blank_values=True)
     case: dict[str, Any] = {}
@@ -82,6 +93,8 @@ def case_from_query(query: str) -> dict[str, Any]:
             for name, part in zip(("agent_family", "kind", "severity", "agent"), parts):
                 if part:
                     row[name] = part
+            if len(parts) > 4 and parts[4]:
+                row["despite_premedication"] = True if parts[4].lower() == BREAKTHROUGH else parts[4]
             if row:
                 reactions.append(row)
         else:
@@ -94,6 +107,12 @@ def case_from_query(query: str) -> dict[str, Any]:
         case["scheduled_at"] = values["at"].strip()
     if values.get("asof", "").strip():  # the "now" the link was made for
         case["as_of"] = values["asof"].strip()
+    if values.get("urgency", "").strip():
+        case["urgency"] = values["urgency"].strip()
+    if "override" in values:
+        flag = _flag(values["override"])
+        if flag is not False:
+            case["override_culprit"] = flag
     if values.get("creatinine", "").strip():
         unit = values.get("unit", "mg/dL").strip() or "mg/dL"
         unit = {"umol/l": "umol/L", "µmol/l": "umol/L", "mg/dl": "mg/dL"}.get(unit.lower(), unit)
@@ -140,6 +159,10 @@ def query_from_case(case: m.Case | dict[str, Any]) -> str:
         pairs.append(("at", str(case["scheduled_at"])[:16]))
     if case.get("as_of"):
         pairs.append(("asof", str(case["as_of"])[:16]))
+    if case.get("urgency") and _text(case["urgency"]) != "elective":
+        pairs.append(("urgency", _text(case["urgency"])))
+    if case.get("override_culprit") is True:
+        pairs.append(("override", "1"))
     p = case.get("patient") or {}
     cr = p.get("creatinine")
     if cr:
@@ -161,7 +184,9 @@ def query_from_case(case: m.Case | dict[str, Any]) -> str:
         pairs.append(("iv_site", _text(iv["site"])))
     for r in p.get("prior_reactions") or []:
         parts = [_text(r["agent_family"]), _text(r["kind"]), _text(r["severity"])]
-        if r.get("agent"):
-            parts.append(str(r["agent"]))
+        if r.get("agent") or r.get("despite_premedication") is True:
+            parts.append(str(r.get("agent") or ""))
+        if r.get("despite_premedication") is True:
+            parts.append(BREAKTHROUGH)
         pairs.append(("reaction", ":".join(parts)))
     return urlencode(pairs, safe="/:")

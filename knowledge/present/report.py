@@ -138,12 +138,16 @@ def dose_lines(decision: m.Decision, role_index: int, exam: m.Exam) -> list[str]
     """The dose plan of a role in words (dose, IV access, cautions), or its exam protocol."""
     dose = getattr(decision.roles[role_index], "dose", None)
     if dose is not None:
-        fields = (("volume_ml", "{:.0f} mL"), ("concentration_mg_i_ml", "{:g} mg I/mL"), ("iodine_g", "{:.1f} g I"),
+        fields = (("volume_ml", "{:g} mL"), ("concentration_mg_i_ml", "{:g} mg I/mL"), ("iodine_g", "{:g} g I"),
                   ("flow_ml_s", "{:g} mL/s"), ("iodine_delivery_rate_g_s", "{:.2f} g I/s"), ("duration_s", "{:.0f} s"))
         parts = [fmt.format(getattr(dose, f)) for f, fmt in fields
                  if isinstance(getattr(dose, f, None), (int, float))]
         basis = getattr(dose, "volume_basis", None)
         lines = ["Dose: " + ", ".join(parts) + (f" ({basis})" if basis else "")] if parts else []
+        if getattr(dose, "hand_injection", False):
+            lines.append("Injection: by hand (small cannula or line not rated for power injection)")
+        if getattr(dose, "concentration_choice", None):
+            lines.append(f"Strength: {dose.concentration_choice}")
         if getattr(dose, "access_message", None):
             fit = "" if getattr(dose, "access_ok", True) is not False else "NOT FIT - "
             lines.append(f"IV access: {fit}{dose.access_message}")
@@ -200,26 +204,53 @@ def timed_lines(decision: m.Decision, knowledge: Knowledge, scheduled_at: dt.dat
     return timed
 
 
+ALERT_MARK = {"stop": "⛔ STOP", "warn": "⚠ WARNING"}
+
+
+def alert_lines(decision: m.Decision) -> list[str]:
+    """The decision's alerts in words, most severe first ('⛔ STOP: ...', '⚠ WARNING: ...'), with sources."""
+    lines = [f"{ALERT_MARK[a.level]}: {a.text} [{a.source}]" for a in getattr(decision, "alerts", []) or []]
+    reason = getattr(decision, "cannot_proceed_reason", None)
+    if reason and not lines:
+        lines.append(f"{ALERT_MARK['stop']}: The exam as requested cannot be done with contrast. {reason}")
+    return lines
+
+
 def note_sections(decision: m.Decision, knowledge: Knowledge,
                   scheduled_at: dt.datetime | None = None) -> tuple[str, list[tuple[str, list[str]]]]:
-    """The note as a title and (heading, lines) sections; both renderings are built from this."""
+    """The note as a title and (heading, lines) sections; both renderings are built from this. Alerts come
+    first, then the exam (with its own notes)."""
     exam = knowledge.exams[decision.exam]
     title = f"Contrast protocol note: {decision.exam_name}"
     sections: list[tuple[str, list[str]]] = []
+    alerts = alert_lines(decision)
+    if alerts:
+        sections.append(("Alerts", alerts))
     head = [f"Exam: {decision.exam_name} ({exam.modality.value}); contrast {decision.contrast.value}"]
     if scheduled_at is not None:
         head.append(f"Scheduled: {scheduled_at.strftime('%a %d %b %Y %H:%M')}")
     r = decision.renal
     if r.egfr is not None:
-        head.append(f"Kidney: eGFR {r.egfr:g} mL/min/1.73 m², KDIGO {r.category} ({r.note})")
+        cat = f"KDIGO {r.category}" if r.category else "no CKD category"
+        head.append(f"Kidney: eGFR {r.egfr:g} mL/min/1.73 m², {cat} ({r.note})")
     else:
         head.append(f"Kidney: {r.note}")
+    urgency = getattr(decision, "urgency", None)
+    if urgency is not None and urgency is not m.Urgency.elective:
+        head.append(f"Urgency: {urgency.value}")
+    if getattr(decision, "exam_notes", ""):
+        head.append(f"Exam notes: {decision.exam_notes}")
     sections.append(("Exam", head))
     sources: list[str] = []
     for i, role in enumerate(decision.roles):
         chosen = next((o for o in role.options if o.chosen), None)
         lines: list[str] = []
         if chosen is None:
+            req = "" if role.required else " (optional)"
+            usable = [o.name for o in role.options if o.verdict.severity <= 1]
+            lines.append("Agent: none planned" + (f" (usable: {', '.join(usable)})" if usable else
+                                                  " - no agent of this role can be used"))
+            sections.append((f"{ROUTE_WORDS[role.route].capitalize()}{req}: {role.purpose}", lines))
             continue
         agent = knowledge.agents[chosen.agent]
         lines.append(f"Agent: {chosen.name} ({agent_kind(agent)}): {verdict_words(chosen.verdict)}")

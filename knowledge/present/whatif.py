@@ -108,7 +108,10 @@ def egfr_sweep(case: m.Case | dict[str, Any], knowledge: Knowledge,
     for x in _probe_points(knowledge, low, high):
         patient = m.Patient.model_validate({**base_patient, "egfr": x})
         decision = decide(case.model_copy(update={"patient": patient}), knowledge)
-        opt = next(o for o in decision.roles[idx].options if o.chosen)
+        opt = next((o for o in decision.roles[idx].options if o.chosen), None)
+        if opt is None:  # no agent can be planned for this role (the decision's alerts say why)
+            return WhatIf(role.route, role.purpose, (), note="No agent is planned for this role (see the alerts), "
+                                                             "so the eGFR sweep has nothing to show")
         samples.append((x, opt, decision.renal.hydration_indicated))
     cuts = breakpoints(knowledge, low, high)
     segments: list[Segment] = []
