@@ -268,8 +268,8 @@ def score_agent(k: Knowledge, agent: m.Agent, facts: dict[str, Any], rules: list
         eff = cr.rule.effect
         if eff.verdict is not None and eff.verdict.severity > verdict.severity:
             verdict = eff.verdict
-        reasons.append(m.Reason.model_construct(rule=cr.rule.id, text=cr.text, verdict=eff.verdict,
-                                                source=cr.source_text, certainty=cr.rule.certainty))
+        reasons.append(cr.reason if cr.reason is not None else m.Reason.model_construct(
+            rule=cr.rule.id, text=cr.text, verdict=eff.verdict, source=cr.source_text, certainty=cr.rule.certainty))
         actions.extend(a for a in cr.actions if a not in actions)
         flags.update(eff.flags)
         if eff.caution:

@@ -35,6 +35,7 @@ class CompiledRule:
     source_text: str
     text: str  # the rule's text with {policy settings} filled in
     actions: tuple[str, ...]  # likewise for its actions
+    reason: Any = None  # the m.Reason a firing shows (the same every time: built once at load)
 
 
 @dataclass
@@ -169,9 +170,11 @@ def load_knowledge(data_dir: Path | str | None = None, policy: Path | str | None
     _check_exam_roles(k)
     for rule in tables.rules:
         where = f"rules.yaml: rule {rule.id}"
-        compiled = CompiledRule(rule, compile_condition(rule.when, pol, where, rule.scope),
-                                k.cite(rule.sources, rule.certainty), _fill(rule.text, pol, where),
-                                tuple(_fill(a, pol, where) for a in rule.effect.actions))
+        source_text, text = k.cite(rule.sources, rule.certainty), _fill(rule.text, pol, where)
+        reason = m.Reason.model_construct(rule=rule.id, text=text, verdict=rule.effect.verdict, source=source_text,
+                                          certainty=rule.certainty)
+        compiled = CompiledRule(rule, compile_condition(rule.when, pol, where, rule.scope), source_text, text,
+                                tuple(_fill(a, pol, where) for a in rule.effect.actions), reason)
         (k.agent_rules if rule.scope is m.Scope.agent else k.case_rules).append(compiled)
     _build_candidates(k)
     return k
