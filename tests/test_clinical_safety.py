@@ -191,7 +191,7 @@ def test_note_starts_with_the_alerts_and_shows_the_exam_notes(k):
     d = decide({"exam": "fluoro-hysterosalpingogram", "patient": {"pregnant": True}}, k)
     md = protocol_note_markdown(d, k)
     first = md.split("## ")[1]
-    assert first.startswith("Alerts") and "⛔ STOP: The exam as requested cannot be done with contrast" in first
+    assert first.startswith("Alerts") and "✖ STOP: The exam as requested cannot be done with contrast" in first
     assert "Exam notes: Exclude pregnancy" in md and "Agent: none planned" in md
 
 

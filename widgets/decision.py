@@ -50,7 +50,7 @@ def card_html(opt: m.Option, agent: m.Agent, ruled_out: bool) -> str:
 
 
 #: alert level -> (glyph, word, border colour): words and glyph first, colour (Okabe-Ito ramp) only a third cue
-ALERT_LOOK = {"stop": ("⛔", "STOP", "#3a3a3a"), "warn": ("⚠", "WARNING", "#CC79A7")}
+ALERT_LOOK = {"stop": ("✖", "STOP", "#3a3a3a"), "warn": ("⚠", "WARNING", "#CC79A7")}
 
 
 def alerts_html(d: m.Decision) -> str:

@@ -191,10 +191,24 @@ def decide(case: Any, knowledge: Knowledge) -> m.Decision:
     raised = _Raised()
     kidney_function = kidney_stage(case.patient, k.policy, raised)
     base = case_facts(case, kidney_function[0], kidney_function[2])
-    roles = [score_role(case, k, exam, index, role, base, raised) for index, role in enumerate(exam.roles)]
+    targets = request_targets(case, k, exam)
+    roles = [score_role(case if index in targets else case.model_copy(update={"agent": None}), k, exam, index,
+                        role, base, raised, requested_elsewhere=case.agent is not None and index not in targets)
+             for index, role in enumerate(exam.roles)]
     apply_case_rules(k, exam, base, raised)
     decision = assemble(case, k, exam, roles, kidney_function, raised)
     return add_plans(case, k, decision)
+
+
+def request_targets(case: m.Case, k: Knowledge, exam: m.Exam) -> set[int]:
+    """The roles a requested agent is planned in: those that list it as a usual agent, else every role whose
+    route could take it (so asking for iohexol in a CT with IV and oral roles plans the IV role only)."""
+    if case.agent is None:
+        return set()
+    usual = {i for i, r in enumerate(exam.roles) if case.agent in r.agents}
+    if usual:
+        return usual
+    return {i for i, r in enumerate(exam.roles) if any(a.id == case.agent for a in k.compatible[r.route])}
 
 
 def check_references(case: m.Case, k: Knowledge) -> m.Exam:
@@ -350,8 +364,10 @@ def choose(case: m.Case, role: m.ExamRole, scored: list[_Scored], raised: _Raise
 
 
 def score_role(case: m.Case, k: Knowledge, exam: m.Exam, index: int, role: m.ExamRole,
-               base: dict[str, Any], raised: _Raised) -> m.RoleDecision:
-    """Score and rank every agent the role's route allows; the options in the plan raise their flags."""
+               base: dict[str, Any], raised: _Raised, requested_elsewhere: bool = False) -> m.RoleDecision:
+    """Score and rank every agent the role's route allows; the options in the plan raise their flags.
+    ``requested_elsewhere``: an agent was requested for another role; this one raises only its chosen
+    option's flags, as a requested agent does."""
     pref = {aid: i for i, aid in enumerate(role.agents)}
     reactions = case.patient.prior_reactions
     scored = []
@@ -371,7 +387,8 @@ def score_role(case: m.Case, k: Knowledge, exam: m.Exam, index: int, role: m.Exa
         # radiologist (suitable, with or without precautions) raises its flags too, so choosing carbon dioxide
         # first never hides the hydration an iodinated alternative would need. A requested agent raises only
         # its own.
-        if chosen or ((case.agent is None or refused) and s.agent.id in pref and not s.culprit
+        if chosen or ((case.agent is None and not requested_elsewhere or refused) and s.agent.id in pref
+                      and not s.culprit
                       and s.verdict.severity <= m.Verdict.suitable_with_precautions.severity):
             raise_flags(raised, s, role)
         if chosen:

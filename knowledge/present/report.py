@@ -204,11 +204,11 @@ def timed_lines(decision: m.Decision, knowledge: Knowledge, scheduled_at: dt.dat
     return timed
 
 
-ALERT_MARK = {"stop": "⛔ STOP", "warn": "⚠ WARNING"}
+ALERT_MARK = {"stop": "✖ STOP", "warn": "⚠ WARNING"}
 
 
 def alert_lines(decision: m.Decision) -> list[str]:
-    """The decision's alerts in words, most severe first ('⛔ STOP: ...', '⚠ WARNING: ...'), with sources."""
+    """The decision's alerts in words, most severe first ('✖ STOP: ...', '⚠ WARNING: ...'), with sources."""
     lines = [f"{ALERT_MARK[a.level]}: {a.text} [{a.source}]" for a in getattr(decision, "alerts", []) or []]
     reason = getattr(decision, "cannot_proceed_reason", None)
     if reason and not lines:
