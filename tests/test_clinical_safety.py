@@ -227,3 +227,22 @@ def test_dashboard_shows_alerts_and_exposes_the_override():
         assert hasattr(app.patient, name)
     app.exam.urgency.value = "emergency"
     assert app.decision.urgency is m.Urgency.emergency
+
+
+def test_policy_elective_regimens_must_exist(tmp_path):
+    import yaml
+
+    from knowledge.errors import KnowledgeError
+    from knowledge.tables.loader import DEFAULT_POLICY
+
+    data = yaml.safe_load(DEFAULT_POLICY.read_text())
+    data["elective_regimens"] = ["prednisone-13h", "accelerated-iv"]
+    bad = tmp_path / "policy.yaml"
+    bad.write_text(yaml.safe_dump(data))
+    with pytest.raises(KnowledgeError) as exc:
+        load_knowledge(policy=bad)
+    assert "elective_regimens 'accelerated-iv' is not one of its elective regimens" in str(exc.value)
+    del data["elective_regimens"]  # an older policy without the list still loads
+    bad.write_text(yaml.safe_dump(data))
+    assert [r.id for r in plans.elective_regimens(load_knowledge(policy=bad))] == [
+        "prednisone-13h", "methylprednisolone-12h"]

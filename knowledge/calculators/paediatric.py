@@ -34,9 +34,9 @@ class ChildDose:
 def child_volume(weight_kg: float, ml_per_kg: float, max_ml_per_kg: float, adult_max_ml: float,
                  reference_mg_i_ml: float, concentration_mg_i_ml: float) -> tuple[float, float]:
     """(volume, cap) in mL for a child: volume = mL/kg · kg · reference strength / strength used, capped at
-    the lower of max mL/kg · kg (same scaling) and the adult maximum. Valid: 0.5–150 kg."""
-    if not (0.5 <= weight_kg <= 150):
-        raise out_of_range("weight_kg", weight_kg, 0.5, 150, "kg (paediatric dose)")
+    the lower of max mL/kg · kg (same scaling) and the adult maximum. Valid: 0.5–350 kg (the case's bound)."""
+    if not (0.5 <= weight_kg <= 350):
+        raise out_of_range("weight_kg", weight_kg, 0.5, 350, "kg")
     scale = reference_mg_i_ml / concentration_mg_i_ml
     cap = min(max_ml_per_kg * weight_kg * scale, adult_max_ml)
     return min(ml_per_kg * weight_kg * scale, cap), cap

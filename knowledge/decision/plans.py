@@ -394,7 +394,7 @@ def hydration_words(plan: m.HydrationPlanBlock, pol: m.Policy) -> str:
     return (f"{plan.fluid} IV {plan.rate_ml_h:g} mL/h ({plan.rate_ml_kg_h:g} mL/kg/h) from "
             f"{pol.hydration_hours_before:g} h before to {pol.hydration_hours_after:g} h after the contrast{when}: "
             f"{plan.volume_before_ml:g} mL before, {plan.volume_after_ml:g} mL after, {plan.total_ml:g} mL in all "
-            f"(policy {pol.id}; its regimen: {pol.hydration_regimen})")
+            f"(policy: {pol.name})")
 
 
 def elective_regimens(k: Any) -> list[m.Regimen]:

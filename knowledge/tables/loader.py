@@ -273,6 +273,11 @@ def _check_references(k: Knowledge) -> None:
     _ref_ok(k, k.policy.based_on, f"policy {k.policy.id}")
     for reg in k.policy.regimens:
         _ref_ok(k, [reg.source], f"policy {k.policy.id}: regimen {reg.id}")
+    for rid in k.policy.elective_regimens or []:
+        if rid not in k.regimens or rid == k.policy.premedication_accelerated_regimen:
+            raise KnowledgeError(
+                f"policy {k.policy.id}: elective_regimens {rid!r} is not one of its elective regimens; allowed: "
+                f"{', '.join(r for r in k.regimens if r != k.policy.premedication_accelerated_regimen)}")
     for name in ("premedication_regimen", "premedication_accelerated_regimen"):
         rid = getattr(k.policy, name)
         if rid not in k.regimens:

@@ -239,6 +239,12 @@ class Agent(Strict):
             raise ValueError(f"agent {self.id}: osmolality_class and ionicity are for iodinated agents only")
         if not self.routes:
             raise ValueError(f"agent {self.id}: routes must list at least one route")
+        if self.intrathecal_strengths:
+            known = {c.value for c in self.concentrations}
+            odd = [v for v in self.intrathecal_strengths if v not in known]
+            if odd or Route.intrathecal not in self.routes:
+                raise ValueError(f"agent {self.id}: intrathecal_strengths must be strengths of the agent and its "
+                                 f"routes must include intrathecal; got {odd or self.intrathecal_strengths}")
         return self
 
 
