@@ -143,9 +143,6 @@ def test_elective_regimens_tried_in_order_before_the_accelerated_one(k):
                     "patient": {"egfr": 80, "prior_reactions": moderate}}, k)
         assert d.premedication.regimen == regimen, hours
     assert [r.id for r in plans.elective_regimens(k)] == ["prednisone-13h", "methylprednisolone-12h"]
-    # a policy without elective_regimens still loads; its default order is the default regimen first
-    esur = load_knowledge(policy=None).policy.model_copy(update={"elective_regimens": None})
-    assert esur.elective_regimens is None
 
 
 def test_elective_exam_only_is_told_to_move(k):

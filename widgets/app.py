@@ -256,7 +256,8 @@ class ContrastAidApp(w.VBox):
         if r.egfr is None:
             text = f"eGFR: not known. {html.escape(r.note or '')}"
         else:
-            text = (f"eGFR <b>{r.egfr:g}</b> mL/min/1.73 m² · KDIGO <b>{r.category}</b> · "
+            cat = f"KDIGO <b>{r.category}</b>" if r.category else "no CKD category (acute kidney injury)"
+            text = (f"eGFR <b>{r.egfr:g}</b> mL/min/1.73 m² · {cat} · "
                     f"{html.escape(r.note or '')}")
         self.patient.set_egfr_readout(text)
 

@@ -105,9 +105,10 @@ def set_egfr(fig: dict, egfr: float | None, category: str | None) -> str:
         marker["x"], marker["y"], marker["text"] = [], [], []
         return "eGFR unknown"
     x = min(float(egfr), EGFR_MAX)
-    marker["x"], marker["y"], marker["text"] = [x], ["patient"], [f" {egfr:g} ({category})"]
-    marker["hovertext"] = [f"this patient: eGFR {egfr:g}, {category}"]
-    return f"eGFR {egfr:g} mL/min/1.73 m², KDIGO {category}"
+    cat = category or "AKI: no CKD category"
+    marker["x"], marker["y"], marker["text"] = [x], ["patient"], [f" {egfr:g} ({cat})"]
+    marker["hovertext"] = [f"this patient: eGFR {egfr:g}, {cat}"]
+    return f"eGFR {egfr:g} mL/min/1.73 m², " + (f"KDIGO {category}" if category else cat)
 
 
 # ---- what-if strip (plain figure dicts: no graph_objects validation on the hot path) ---------------
