@@ -128,7 +128,14 @@ def choose_concentration(available: list[float], wanted: float | None) -> tuple[
 
 def choose_concentration_for_idr(available: list[float], flow_ml_s: float, target_g_s: float) -> tuple[float, str]:
     """The strength whose iodine delivery rate at ``flow_ml_s`` is nearest to ``target_g_s`` (ties: the
-    higher strength, so the target is reached). IDR = strength (mg I/mL) · flow (mL/s) / 1000."""
+    higher strength, so the target is reached). IDR = strength (mg I/mL) · flow (mL/s) / 1000.
+
+    Example: target 1.4 g I/s at 4 mL/s with 200/300/370 mg I/mL: 370 gives 1.48 g I/s, 300 gives 1.20,
+    so 370 is nearest (the old "highest strength below 350" rule picked 300).
+
+    >>> choose_concentration_for_idr([200, 300, 370], 4, 1.4)[0]
+    370.0
+    """
     if not available:
         raise out_of_range("concentrations", "none", 1, None, "strength in mg I/mL in the catalogue")
     strengths = sorted(set(float(v) for v in available))
