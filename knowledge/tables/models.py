@@ -638,7 +638,10 @@ class Option(Strict):
     osmolality_class: OsmolalityClass | None
     verdict: Verdict
     rank: int = Field(description="1 = best")
-    chosen: bool = Field(description="The option the plan uses (requested or top-ranked)")
+    chosen: bool = Field(
+        description="The option the plan uses: the requested agent unless contraindicated (culprit override "
+                    "aside), else the best-ranked usual agent that is neither contraindicated nor the culprit of an "
+                    "earlier reaction; no option of the role is chosen when none qualifies (see the alerts)")
     reasons: list[Reason]
     actions: list[str]
 
@@ -684,7 +687,8 @@ class RoleDecision(Strict):
     required: bool
     options: list[Option]
     dose: DoseBlock | None = Field(
-        None, description="Worked dose of the chosen agent, for intravascular roles with an iodinated choice"
+        None, description="Worked dose of the chosen agent, for intravascular and intrathecal roles with an "
+                          "iodinated choice (none when no agent is chosen)"
     )
 
 
