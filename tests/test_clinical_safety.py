@@ -243,3 +243,16 @@ def test_policy_elective_regimens_must_exist(tmp_path):
     bad.write_text(yaml.safe_dump(data))
     assert [r.id for r in plans.elective_regimens(load_knowledge(policy=bad))] == [
         "prednisone-13h", "methylprednisolone-12h"]
+
+
+def test_dashboard_prefills_urgency_override_and_breakthrough_from_a_link():
+    from widgets.app import ContrastAidApp
+
+    app = ContrastAidApp(clock=lambda: NOW, query="exam=ct-abdomen-pelvis&agent=iohexol&override=1&urgency=urgent"
+                                                  "&egfr=80&reaction=iodinated:allergic_like:moderate:iohexol:breakthrough")
+    assert app.exam.urgency.value == "urgent" and app.exam.override_culprit.value is True
+    assert app.patient.reactions.rows[0].breakthrough.value is True
+    d = app.decision
+    assert d.urgency is m.Urgency.urgent
+    assert [o.agent for o in d.roles[0].options if o.chosen] == ["iohexol"]
+    assert any(a.rule == "override-culprit" for a in d.alerts)
