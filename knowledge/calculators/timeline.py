@@ -139,7 +139,7 @@ def premedication_schedule(elective: Any, accelerated: Any, exam_at: dt.datetime
             else:
                 warnings.append(
                     f"Less than the accelerated regimen's {accelerated.minimum_lead_hours:g} h is left: give the "
-                    "doses that fit, use a different agent, resuscitation team ready; do not delay a "
+                    "doses that fit, use a different agent, resuscitation team ready; do not delay an "
                     f"{urgency} exam for it")
     doses = lay_out(regimen, exam_at, now)
     for d in doses:

@@ -419,12 +419,17 @@ def plan_premedication(case: m.Case, k: Any, premed: m.PremedicationBlock) -> m.
     sched = timeline.premedication_schedule(elective_regimens(k),
                                             k.regimens[pol.premedication_accelerated_regimen],
                                             case.scheduled_at, case.as_of, urgency=case.urgency.value)
+    warnings = list(sched.warnings)
+    age = case.patient.age_years
+    if age is not None and age < paediatric.ADULT_AGE_YEARS:
+        warnings.append("Patient under 18: the regimen's doses are adult doses; a child's premedication doses are "
+                        "per kg - set them with the paediatric team (not modelled here)")
     return premed.model_copy(update=dict(
         regimen=sched.regimen.id, regimen_name=sched.regimen.name, lead_hours=_r(sched.lead_hours),
         schedule=[m.ScheduleItem(at=d.at, hours_before=None if math.isnan(d.hours_before) else
                                  round(d.hours_before, 2), drug=d.drug, dose=d.dose, route=d.route,
                                  optional=d.optional) for d in sched.doses],
-        warnings=sched.warnings))
+        warnings=warnings))
 
 
 def plan_metformin(case: m.Case, met: m.MetforminBlock) -> m.MetforminBlock:
