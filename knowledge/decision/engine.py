@@ -428,6 +428,7 @@ _ACR_METFORMIN = "ACR Manual on Contrast Media, American College of Radiology, m
 
 def _metformin_advice(case: m.Case, egfr: float | None, hold: bool, iodinated_intravascular: bool,
                       raised: _Raised) -> str | None:
+    """Metformin advice (ACR Manual): never "continue" while the eGFR is unknown before intravascular contrast."""
     p = case.patient
     if not p.takes_metformin:
         return None
@@ -438,6 +439,7 @@ def _metformin_advice(case: m.Case, egfr: float | None, hold: bool, iodinated_in
         return ("Withhold metformin from the time of contrast for 48 h; restart only after kidney function "
                 "is re-checked")
     if iodinated_intravascular and egfr is None and not p.acute_kidney_injury:
+        # also when carbon dioxide is planned: an iodinated top-up may follow
         raised.alert("warn", "Takes metformin and no eGFR is known: obtain an eGFR before intravascular iodinated "
                      "contrast - whether metformin is withheld depends on it", "metformin-egfr-unknown",
                      _ACR_METFORMIN)
@@ -458,7 +460,8 @@ def assemble(case: m.Case, k: Knowledge, exam: m.Exam, roles: list[m.RoleDecisio
     iv_iodinated = any(o.chosen and o.family is m.Family.iodinated for r in roles if r.route in m.INTRAVASCULAR
                        for o in r.options)
     hold = m.Flag.metformin_hold in raised.flags and takes and case.patient.dialysis is m.Dialysis.none
-    advice = _metformin_advice(case, egfr, hold, iv_iodinated, raised)
+    intravascular_exam = any(r.route in m.INTRAVASCULAR for r in exam.roles)
+    advice = _metformin_advice(case, egfr, hold, iv_iodinated or intravascular_exam, raised)
     alerts = sorted(raised.alerts, key=lambda a: a.level != "stop")
     return m.Decision(
         exam=exam.id, exam_name=exam.name, contrast_needed=any(r.required for r in exam.roles),
