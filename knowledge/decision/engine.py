@@ -328,7 +328,8 @@ def choose(case: m.Case, role: m.ExamRole, scored: list[_Scored], raised: _Raise
                              "supervising radiologist must confirm it, with reaction treatment ready.",
                              "override-culprit", source or _CULPRIT_SOURCE)
                 return s.agent.id
-            alt = next((o for o in scored if o.verdict is not cx and not o.culprit), None)
+            alt = next((o for o in scored if o.verdict is not cx and not o.culprit and o.agent.id in role.agents),
+                       None)
             tail = (f" The best alternative is {alt.agent.name} ({alt.verdict.value.replace('_', ' ')})."
                     if alt else " No agent of this role can be used.")
             raised.alert("stop", f"{s.agent.name} was requested for the {_role_words(role)} but is contraindicated: "
