@@ -16,8 +16,10 @@ from knowledge.tables import models as m
 from knowledge.present.form import NUMBERS, creatinine_hint, hint
 from knowledge.tables.loader import Knowledge
 
-MODALITY_LABEL = {m.Modality.fluoroscopy: "Fluoro", m.Modality.angiography: "Angio", m.Modality.ct: "CT"}
-MODALITY_ORDER = {m.Modality.fluoroscopy: 0, m.Modality.angiography: 1, m.Modality.ct: 2}
+MODALITY_LABEL = {m.Modality.fluoroscopy: "Fluoro", m.Modality.angiography: "Angio", m.Modality.ct: "CT",
+                  m.Modality.mri: "MRI", m.Modality.ultrasound: "US"}
+MODALITY_ORDER = {m.Modality.fluoroscopy: 0, m.Modality.angiography: 1, m.Modality.ct: 2,
+                  m.Modality.mri: 3, m.Modality.ultrasound: 4}
 _WIDE = w.Layout(width="230px")
 _DESC = {"description_width": "initial"}
 

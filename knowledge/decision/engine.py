@@ -223,7 +223,7 @@ def check_references(case: m.Case, k: Knowledge) -> m.Exam:
         raise CaseError(f"agent: {case.agent!r} is not a known agent; allowed: the ids of `contrast-aid agents`",
                         field="agent")
     if case.agent is not None:
-        possible = sorted({a.id for role in exam.roles for a in k.compatible[role.route]})
+        possible = sorted({a.id for i in range(len(exam.roles)) for a, _, _ in k.candidates[(exam.id, i)]})
         if case.agent not in possible:
             allowed = ", ".join(possible) if possible else "none (this exam uses no contrast)"
             raise CaseError(f"agent: {case.agent!r} cannot be given in any role of {exam.id}; allowed: {allowed}",

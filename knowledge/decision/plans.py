@@ -30,6 +30,7 @@ from ..calculators import access as access_calc
 from ..calculators import body, dose as dose_calc, freshness, hydration, kidney, limits, timeline, viscosity
 from ..calculators import paediatric
 from ..errors import CaseError, ContrastAidError, RangeError
+from .agent_doses import plan_agent_doses  # gadolinium and microbubble doses (issue 13)
 
 #: Hours after contrast at which kidney function is re-checked before metformin is restarted.
 METFORMIN_RECHECK_HOURS = timeline.METFORMIN_RECHECK_HOURS
@@ -254,6 +255,7 @@ def add_plans(case: m.Case, knowledge: Any, decision: m.Decision) -> m.Decision:
 def _add_plans(case: m.Case, k: Any, decision: m.Decision) -> m.Decision:
     exam = k.exams[decision.exam]
     roles, doses, iodinated_intravascular = plan_doses(case, k, exam, decision)
+    roles = plan_agent_doses(case, k, exam, roles)
     catheter = any(r.catheter_study and r.route in m.INTRAVASCULAR for r in exam.roles)
     renal = plan_renal(case, k, decision.renal, doses, iodinated_intravascular, catheter)
     premed = plan_premedication(case, k, decision.premedication)

@@ -189,6 +189,9 @@ def exam_facts(exam: m.Exam, policy: m.Policy) -> dict[str, Any]:
         "exam.tags": tuple(exam.tags),
         "exam.has_intravascular_role": any(r.route in m.INTRAVASCULAR for r in exam.roles),
         "policy.metformin_hold_first_pass": policy.metformin_hold_first_pass,
+        "policy.gbca_group_ii_egfr_screening": policy.gbca_group_ii_egfr_screening,
+        "policy.gbca_linear_iv_restricted": policy.gbca_linear_iv_restricted,
+        "policy.gbca_low_egfr_precautions": policy.gbca_low_egfr_precautions,
     }
 
 
@@ -209,7 +212,26 @@ def static_facts(exam: m.Exam, role: m.ExamRole, agent: m.Agent, policy: m.Polic
         "agent.ionicity": agent.ionicity.value if agent.ionicity else None,
         "agent.labelled_for_route": role.route in agent.routes,
         "agent.usual_for_role": agent.id in role.agents,
+        **_mr_us_agent_facts(agent),
     }
+
+
+def _mr_us_agent_facts(agent: m.Agent) -> dict[str, Any]:
+    """The gadolinium and microbubble agent facts (issue 13); None where they do not apply."""
+    return {
+        "agent.gbca_group": agent.gbca_group.value if agent.gbca_group else None,
+        "agent.gbca_structure": agent.gbca_structure.value if agent.gbca_structure else None,
+        "agent.hepatobiliary": agent.hepatobiliary.value if agent.hepatobiliary else None,
+        "agent.mri_signal": agent.mri_signal.value if agent.mri_signal else None,
+        "agent.excipients": tuple(agent.excipients),
+    }
+
+
+def exam_agents(k: "Knowledge", exam: m.Exam, role: m.ExamRole) -> list[m.Agent]:
+    """The agents that could be given in a role: route-compatible (routes.yaml) and imaging in the exam's
+    modality (an MRI exam is not offered iodinated agents, nor a CT exam gadolinium; issue 13)."""
+    modality = exam.modality.value
+    return [a for a in k.compatible[role.route] if modality in a.imaging_modalities()]
 
 
 def _build_candidates(k: Knowledge) -> None:
@@ -220,7 +242,7 @@ def _build_candidates(k: Knowledge) -> None:
     for exam in k.tables.exams:
         for i, role in enumerate(exam.roles):
             rows = []
-            for agent in k.compatible[role.route]:
+            for agent in exam_agents(k, exam, role):
                 facts = static_facts(exam, role, agent, k.policy)
                 rules = [cr for cr, test in partial if test(facts) is not False]
                 rows.append((agent, facts, rules))
@@ -264,12 +286,21 @@ def _check_references(k: Knowledge) -> None:
                 _ref_ok(k, [c.source], f"agents.yaml: agent {a.id}")
         if a.family is m.Family.iodinated and any(c.unit is not m.Unit.mg_i_per_ml for c in a.concentrations):
             raise KnowledgeError(f"agents.yaml: agent {a.id}: iodinated strengths must be in mg_i_per_ml")
+        gd = a.family is m.Family.gadolinium
+        if any((c.unit is m.Unit.mmol_per_ml) != gd for c in a.concentrations):
+            raise KnowledgeError(f"agents.yaml: agent {a.id}: strengths in mmol_per_ml are for gadolinium agents, "
+                                 "and gadolinium strengths must be in mmol_per_ml")
+        if a.dose_source:
+            _ref_ok(k, [a.dose_source], f"agents.yaml: agent {a.id}")
     for r in k.tables.rules:
         _ref_ok(k, r.sources, f"rules.yaml: rule {r.id}")
     for e in k.tables.exams:
         for role in e.roles:
             if role.protocol and role.protocol.source:
                 _ref_ok(k, [role.protocol.source], f"exams.yaml: exam {e.id}")
+            if role.protocol and role.protocol.for_agent and role.protocol.for_agent not in role.agents:
+                raise KnowledgeError(f"exams.yaml: exam {e.id}: protocol for_agent {role.protocol.for_agent!r} is "
+                                     f"not one of the role's agents; allowed: {', '.join(role.agents)}")
     _ref_ok(k, k.policy.based_on, f"policy {k.policy.id}")
     for reg in k.policy.regimens:
         _ref_ok(k, [reg.source], f"policy {k.policy.id}: regimen {reg.id}")
@@ -310,6 +341,7 @@ def _check_exam_roles(k: Knowledge) -> None:
             if not role.agents:
                 raise KnowledgeError(f"{where}: agents must list at least one agent")
             compat = {a.id for a in k.compatible[role.route]}
+            here = {a.id for a in exam_agents(k, e, role)}
             for aid in role.agents:
                 if aid not in k.agents:
                     raise KnowledgeError(f"{where}: unknown agent {aid!r}; see `contrast-aid agents`")
@@ -317,3 +349,7 @@ def _check_exam_roles(k: Knowledge) -> None:
                     raise KnowledgeError(
                         f"{where}: agent {aid} cannot be given by route {role.route.value} (routes.yaml)"
                     )
+                if aid not in here:
+                    raise KnowledgeError(
+                        f"{where}: agent {aid} does not image in {e.modality.value}; it images in "
+                        f"{', '.join(k.agents[aid].imaging_modalities())}")
