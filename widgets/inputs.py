@@ -301,7 +301,8 @@ GROUP_FLAGS = {
             "obstruction_high_grade"],
     "other": ["takes_metformin", "hyperthyroidism", "radioiodine_planned", "pregnant", "breastfeeding",
               "shellfish_or_iodine_allergy", "heart_failure", "myasthenia_gravis", "inpatient",
-              "manifest_hyperthyroidism", "pheochromocytoma"],
+              "manifest_hyperthyroidism", "pheochromocytoma",
+              "peg_allergy", "unstable_cardiopulmonary"],  # the last two: MRI and ultrasound (issue 13)
 }
 FLAG_LABEL = {
     "acute_kidney_injury": "Acute kidney injury now",
@@ -326,6 +327,8 @@ FLAG_LABEL = {
     "obstruction_high_grade": "Obstruction is high-grade",
     "manifest_hyperthyroidism": "Manifest (overt) hyperthyroidism now",
     "pheochromocytoma": "Pheochromocytoma or paraganglioma",
+    "peg_allergy": "Polyethylene glycol (PEG) hypersensitivity",
+    "unstable_cardiopulmonary": "Pulmonary hypertension or unstable cardiopulmonary condition",
 }
 IV_SITES = ["antecubital", "forearm", "hand_or_wrist", "central_power_injectable", "central_not_power_rated"]
 

@@ -26,10 +26,12 @@ DECISION_SUPPORT = (
     "Decision support only: the supervising radiologist, local policy and licensed practice decide."
 )
 READINESS = (
-    "Wherever iodinated contrast is given, trained staff, a reaction kit and epinephrine must be at hand "
-    "(common practice)."
+    "Wherever iodinated or gadolinium contrast is given, trained staff, a reaction kit and epinephrine must be "
+    "at hand (common practice)."
 )
 _SYSTEMIC = m.INTRAVASCULAR | {m.Route.intrathecal}
+#: families whose systemic use always shows the readiness caution (gadolinium: issue 13, ACR Manual)
+_READINESS_FAMILIES = (m.Family.iodinated, m.Family.oil, m.Family.gadolinium)
 _SEVERITY = {"none": 0, "mild": 1, "moderate": 2, "severe": 3}
 _SEVERITY_NAME = {v: k for k, v in _SEVERITY.items()}
 
@@ -406,7 +408,7 @@ def score_role(case: m.Case, k: Knowledge, exam: m.Exam, index: int, role: m.Exa
 def raise_flags(raised: _Raised, s: _Scored, role: m.ExamRole) -> None:
     """An option in the plan raises its rules' flags and cautions for the whole decision."""
     raised.flags |= s.flags
-    raised.systemic_iodinated |= s.agent.family in (m.Family.iodinated, m.Family.oil) and role.route in _SYSTEMIC
+    raised.systemic_iodinated |= s.agent.family in _READINESS_FAMILIES and role.route in _SYSTEMIC
     for text in s.lifted:
         raised.caution(text)
 

@@ -48,7 +48,8 @@ def _mr_us_kind(agent: m.Agent) -> list[str]:
     """'macrocyclic non-ionic, ACR group II' for gadolinium agents; the MRI signal of luminal agents (issue 13)."""
     parts = []
     if agent.gbca_structure is not None:
-        parts.append(agent.gbca_structure.value + (f" {agent.ionicity.value.replace('_', '-')}" if agent.ionicity else ""))
+        ion = f" {agent.ionicity.value.replace('_', '-')}" if agent.ionicity else ""
+        parts.append(agent.gbca_structure.value + ion)
     if agent.gbca_group is not None:
         parts.append(f"ACR group {agent.gbca_group.value}")
     if agent.hepatobiliary is not None and agent.hepatobiliary is not m.Hepatobiliary.none:
