@@ -20,6 +20,7 @@ from ..calculators import kidney
 from ..errors import CaseError, ContrastAidError
 from ..tables.loader import Knowledge, exam_facts
 from .plans import add_plans
+from . import department
 from ..tables.validation import describe
 
 DECISION_SUPPORT = (
@@ -199,7 +200,7 @@ def decide(case: Any, knowledge: Knowledge) -> m.Decision:
              for index, role in enumerate(exam.roles)]
     apply_case_rules(k, exam, base, raised)
     decision = assemble(case, k, exam, roles, kidney_function, raised)
-    return add_plans(case, k, decision)
+    return department.department_stage(case, k, add_plans(case, k, decision))
 
 
 def request_targets(case: m.Case, k: Knowledge, exam: m.Exam) -> set[int]:
@@ -379,9 +380,9 @@ def score_role(case: m.Case, k: Knowledge, exam: m.Exam, index: int, role: m.Exa
         if reactions:
             facts.update(_history_facts(reactions, agent))
         scored.append(score_agent(k, agent, facts, candidate_rules, pref))
-    scored.sort(key=lambda s: s.order)
+    scored = department.rank_options(k, exam, role, scored)  # verdict, then formulary and preferred agent
     requested = case.agent in {s.agent.id for s in scored}
-    chosen_id = choose(case, role, scored, raised)
+    chosen_id = department.stocked_choice(k, case, role, scored, choose(case, role, scored, raised))
     refused = requested and chosen_id is None
     options = []
     for rank, s in enumerate(scored, start=1):

@@ -18,6 +18,7 @@ from pydantic import ValidationError
 
 from . import models as m
 from .conditions import Compiled, compile_condition, compile_partial
+from . import overlay as ov_mod
 from ..errors import KnowledgeError
 from .validation import describe
 
@@ -57,6 +58,10 @@ class Knowledge:
     agent_rules: list[CompiledRule] = field(default_factory=list)
     case_rules: list[CompiledRule] = field(default_factory=list)
     regimens: dict[str, m.Regimen] = field(default_factory=dict)
+    #: a department overlay (formulary, preferred agents, codes, on-call line), if the policy file is one
+    overlay: ov_mod.Overlay | None = None
+    #: the bundled profile the overlay starts from (its Policy), for ``policy check`` and ``policy diff``
+    base_policy: m.Policy | None = None
 
     def cite(self, refs: list[m.SourceRef], certainty: m.Certainty) -> str:
         """Sources as shown to users: 'title, issuer year, section; ...' or the certainty words."""
@@ -120,8 +125,26 @@ def _unique(rows: list, name: str, key: str = "id") -> None:
 
 
 def load_policy(path: Path | str | None = None) -> tuple[m.Policy, bytes]:
+    """A plain policy or a department overlay merged onto its base, and the bytes its hash is taken of."""
+    pol, blob, _overlay, _base = load_policy_file(path)
+    return pol, blob
+
+
+def load_policy_file(path: Path | str | None = None) -> tuple[m.Policy, bytes, Any, m.Policy | None]:
+    """(policy, bytes hashed, overlay or None, base policy or None). An overlay's hash covers its base."""
     p = Path(path) if path else DEFAULT_POLICY
     raw, blob = _read_yaml(p)
+    if ov_mod.is_overlay(raw):
+        overlay = ov_mod.parse_overlay(raw, p.name)
+        base, base_blob = _plain_policy(DATA_DIR / "policies" / f"{overlay.base}.yaml")
+        return ov_mod.merge_policy(base, overlay, p.name), blob + b"\0" + base_blob, overlay, base
+    pol, blob = _plain_policy(p, raw, blob)
+    return pol, blob, None, None
+
+
+def _plain_policy(p: Path, raw: Any = None, blob: bytes | None = None) -> tuple[m.Policy, bytes]:
+    if blob is None:
+        raw, blob = _read_yaml(p)
     if not isinstance(raw, dict):
         raise KnowledgeError(f"{p.name}: a policy file must hold one mapping of settings")
     try:
@@ -139,7 +162,7 @@ def load_knowledge(data_dir: Path | str | None = None, policy: Path | str | None
         data, blob = _read_yaml(base / f"{name}.yaml")
         raw[name] = data
         digest.update(name.encode() + b"\0" + blob + b"\0")
-    pol, pol_blob = load_policy(policy)
+    pol, pol_blob, overlay, base_policy = load_policy_file(policy)
 
     models = {
         "sources": m.Source,
@@ -165,6 +188,10 @@ def load_knowledge(data_dir: Path | str | None = None, policy: Path | str | None
     k.exams = {e.id: e for e in tables.exams}
     k.rules = {r.id: r for r in tables.rules}
     k.regimens = {r.id: r for r in pol.regimens}
+    if overlay is not None:  # department overlay: check its references, keep only the strengths held
+        ov_mod.check_overlay(overlay, k.agents, k.exams, Path(policy).name)
+        k.overlay, k.base_policy = overlay, base_policy
+        k.agents = {aid: ov_mod.held_strengths(overlay, a) for aid, a in k.agents.items()}
     _check_references(k)
     _build_compatibility(k)
     _check_exam_roles(k)

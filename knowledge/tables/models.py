@@ -774,6 +774,8 @@ class Option(Strict):
                     "earlier reaction; no option of the role is chosen when none qualifies (see the alerts)")
     reasons: list[Reason]
     actions: list[str]
+    stocked: bool | None = Field(None, description="In the department formulary (null: no formulary in the policy)")
+    local_label: str | None = Field(None, description="The department's display label of a stocked agent")
 
 
 class Viscosity(Strict):
@@ -958,3 +960,6 @@ class Decision(Strict):
     policy: str
     knowledge_version: str
     as_of: dt.datetime | None = Field(None, description="The 'now' the times were worked out for (the case's as_of)")
+    policy_version: str | None = Field(
+        None, description="Hash of the policy file (of an overlay and its base profile), to reproduce the decision")
+    on_call: str | None = Field(None, description="The department's on-call radiologist contact line, if any")

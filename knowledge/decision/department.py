@@ -1,0 +1,99 @@
+"""The department stages of ``decide``: formulary, preferred agent, on-call line and the policy hash.
+
+Two hooks, both no-ops without an overlay (``knowledge/tables/overlay.py``) except for the policy hash:
+
+- :func:`rank_options` (after scoring a role): options are ranked by verdict, then stocked before not
+  stocked, then the department's preferred agent, then the exam's order of preference. The default
+  choice is the first *stocked* option; an agent that is not stocked is never chosen by default (only
+  when the case requests it, or when the formulary stocks nothing for the role, which a caution says).
+- :func:`department_stage` (after the plans): marks each option stocked or "not stocked here" with its
+  local label, adds a caution when a better-rated agent is not stocked, the on-call contact line, and the
+  policy hash (``Decision.policy_version``) beside the knowledge version.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from ..tables import models as m
+
+NOT_STOCKED = "Not stocked here"
+
+
+def resolve_exam(code: str, k: Any) -> str:
+    """A local procedure code of the overlay mapped to its exam id (an exam id passes unchanged)."""
+    ov = k.overlay
+    if ov is not None and code not in k.exams and code in ov.procedure_codes:
+        return ov.procedure_codes[code]
+    return code
+
+
+def rank_options(k: Any, exam: m.Exam, role: m.ExamRole, scored: list) -> list:
+    """A role's scored options in rank order: verdict, then (with an overlay) stocked before not stocked
+    and the preferred agent, then the exam's order of preference."""
+    ov = k.overlay
+    if ov is None:
+        scored.sort(key=lambda s: s.order)
+        return scored
+    preferred = ov.preferred_for(exam.id, role.route)
+    scored.sort(key=lambda s: (s.order[0], not ov.stocked(s.agent.id), s.agent.id != preferred, s.order[1:]))
+    return scored
+
+
+def stocked_choice(k: Any, case: m.Case, role: m.ExamRole, scored: list, chosen_id: str | None) -> str | None:
+    """The default choice under a formulary: the first stocked usual agent of the role that is suitable
+    (with or without precautions) and not the culprit of an earlier reaction; else the engine's choice.
+    A requested agent, or no choice at all, is left as it is."""
+    ov = k.overlay
+    if ov is None or ov.formulary is None or chosen_id is None or case.agent in {s.agent.id for s in scored}:
+        return chosen_id
+    usual = set(role.agents)
+    limit = m.Verdict.suitable_with_precautions.severity
+    best = next((s for s in scored if ov.stocked(s.agent.id) and s.agent.id in usual
+                 and s.verdict.severity <= limit and not getattr(s, "culprit", False)), None)
+    return best.agent.id if best is not None else chosen_id
+
+
+def _strengths(agent: m.Agent) -> str:
+    unit = {"mg_i_per_ml": "mg I/mL", "percent_w_v": "% w/v", "percent_w_w": "% w/w"}
+    return ", ".join(f"{c.value:g} {unit[c.unit.value]}" for c in agent.concentrations)
+
+
+def department_stage(case: m.Case, k: Any, decision: m.Decision) -> m.Decision:
+    """The decision with the department's formulary marks, cautions, on-call line and policy hash."""
+    ov = k.overlay
+    if ov is None:
+        return decision.model_copy(update={"policy_version": k.policy_version})
+    cautions = list(decision.cautions)
+    roles = []
+    for rd in decision.roles:
+        options = []
+        for o in rd.options:
+            stocked = ov.stocked(o.agent)
+            item = ov.item(o.agent)
+            label = item.label if item else None
+            reasons, actions = list(o.reasons), list(o.actions)
+            if not stocked:
+                reasons.append(m.Reason(rule="department-formulary", text=f"{NOT_STOCKED} ({k.policy.name})",
+                                        verdict=None, source=f"local policy {k.policy.id}",
+                                        certainty=m.Certainty.common_practice))
+            elif label:
+                held = _strengths(k.agents[o.agent])
+                actions.insert(0, f"Stocked here as {label!r}" + (f" (strengths held: {held})" if held else ""))
+            options.append(o.model_copy(update=dict(stocked=stocked, local_label=label, reasons=reasons,
+                                                    actions=actions)))
+        chosen = next((o for o in options if o.chosen), None)
+        if chosen is not None and not chosen.stocked:
+            why = "requested" if case.agent == chosen.agent else "the formulary stocks no agent for this role"
+            cautions.append(f"{chosen.name} ({rd.route.value}) is not stocked here ({why})")
+        elif chosen is not None:
+            better = [o for o in options if not o.stocked and o.verdict.severity < chosen.verdict.severity]
+            if better:
+                b = better[0]
+                cautions.append(f"{b.name} ({rd.route.value}) is rated {b.verdict.value} but not stocked here; the "
+                                f"stocked choice {chosen.name} is {chosen.verdict.value}")
+        roles.append(rd.model_copy(update={"options": options}))
+    if ov.on_call:
+        cautions.append(f"On call: {ov.on_call}")
+    return decision.model_copy(update=dict(roles=roles, cautions=cautions, policy_version=k.policy_version,
+                                           on_call=ov.on_call))
