@@ -69,11 +69,11 @@ def department_stage(case: m.Case, k: Any, decision: m.Decision) -> m.Decision:
     for rd in decision.roles:
         options = []
         for o in rd.options:
-            stocked = ov.stocked(o.agent)
+            stocked = ov.stocked(o.agent) if ov.formulary is not None else None
             item = ov.item(o.agent)
             label = item.label if item else None
             reasons, actions = list(o.reasons), list(o.actions)
-            if not stocked:
+            if stocked is False:
                 reasons.append(m.Reason(rule="department-formulary", text=f"{NOT_STOCKED} ({k.policy.name})",
                                         verdict=None, source=f"local policy {k.policy.id}",
                                         certainty=m.Certainty.common_practice))
@@ -83,11 +83,11 @@ def department_stage(case: m.Case, k: Any, decision: m.Decision) -> m.Decision:
             options.append(o.model_copy(update=dict(stocked=stocked, local_label=label, reasons=reasons,
                                                     actions=actions)))
         chosen = next((o for o in options if o.chosen), None)
-        if chosen is not None and not chosen.stocked:
+        if chosen is not None and chosen.stocked is False:
             why = "requested" if case.agent == chosen.agent else "the formulary stocks no agent for this role"
             cautions.append(f"{chosen.name} ({rd.route.value}) is not stocked here ({why})")
         elif chosen is not None:
-            better = [o for o in options if not o.stocked and o.verdict.severity < chosen.verdict.severity]
+            better = [o for o in options if o.stocked is False and o.verdict.severity < chosen.verdict.severity]
             if better:
                 b = better[0]
                 cautions.append(f"{b.name} ({rd.route.value}) is rated {b.verdict.value} but not stocked here; the "

@@ -148,8 +148,9 @@ def summarise_decision(d: m.Decision, case: m.Case) -> dict[str, Any]:
     elif r.creatinine_stale:
         flags.append("creatinine stale")
     alerts += r.warnings + d.premedication.warnings
-    if r.dose_limits:
-        alerts += r.dose_limits.messages
+    limits = r.dose_limits
+    if limits and (limits.iodine_g_per_gfr_exceeded or limits.cigarroa_exceeded):  # not "not worked out" notes
+        alerts += limits.messages
     alerts += [c for c in d.cautions if "not stocked here" in c]
     actions: list[str] = []
     times: list[dt.datetime] = []

@@ -120,7 +120,10 @@ def parse_overlay(raw: Any, filename: str) -> Overlay:
     try:
         return Overlay.model_validate(raw)
     except ValidationError as exc:
-        raise KnowledgeError(f"{filename}: {describe(exc, Overlay, 'overlay')}") from None
+        line = describe(exc, Overlay, "overlay")
+        if line.startswith("overlay: ") and line[9:].split(":")[0].split(".")[0].split("[")[0] in Overlay.model_fields:
+            line = "overlay." + line[9:]  # a whole-overlay check names its own field
+        raise KnowledgeError(f"{filename}: {line}") from None
 
 
 def merge_policy(base: m.Policy, ov: Overlay, filename: str) -> m.Policy:
