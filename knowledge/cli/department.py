@@ -240,7 +240,8 @@ def add_department_parsers(sub: Any, parser_class: type) -> None:
     p.add_argument("--before", metavar="T", help="list the orders needing action before T (default: as-of + 24 h)")
     p.add_argument("--engine", choices=("local", "dask"), default="local")
     p.add_argument("--scheduler", metavar="ADDRESS", help="Dask scheduler address, with --engine dask")
-    p.add_argument("--workers", type=int, default=0, metavar="N",
-                   help="worker processes for long lists (default: up to 2; 1: none)")
+    p.add_argument("--workers", type=int, default=1, metavar="N",
+                   help="worker processes for the distinct cases of a long list (default 1: in this process; "
+                        "see benchmarks/bench_review.py for when 2 pays)")
     p.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=cmd_review)

@@ -74,9 +74,9 @@ def department_stage(case: m.Case, k: Any, decision: m.Decision) -> m.Decision:
             label = item.label if item else None
             reasons, actions = list(o.reasons), list(o.actions)
             if stocked is False:
-                reasons.append(m.Reason(rule="department-formulary", text=f"{NOT_STOCKED} ({k.policy.name})",
-                                        verdict=None, source=f"local policy {k.policy.id}",
-                                        certainty=m.Certainty.common_practice))
+                reasons.append(m.Reason.model_construct(
+                    rule="department-formulary", text=f"{NOT_STOCKED} ({k.policy.name})", verdict=None,
+                    source=f"local policy {k.policy.id}", certainty=m.Certainty.common_practice))
             elif label:
                 held = _strengths(k.agents[o.agent])
                 actions.insert(0, f"Stocked here as {label!r}" + (f" (strengths held: {held})" if held else ""))

@@ -10,7 +10,6 @@ CSV/XLSX that a spreadsheet would run as a formula are prefixed with ``'``.
 from __future__ import annotations
 
 import datetime as dt
-import json
 import os
 import tempfile
 from collections import Counter
@@ -232,10 +231,6 @@ class Review:
         return 1 if any(r["status"] == "rejected" for r in self.rows) else 0
 
 
-def case_key(case_dict: dict) -> str:
-    return json.dumps(case_dict, sort_keys=True, default=str)
-
-
 def review_rows(header: list[str], rows: list[dict[str, str]], k: Any, as_of: dt.datetime,
                 progress: Callable[[int], None] | None = None,
                 decide_many: Callable[[list[dict]], list[dict]] | None = None) -> Review:
@@ -243,19 +238,21 @@ def review_rows(header: list[str], rows: list[dict[str, str]], k: Any, as_of: dt
 
     ``decide_many`` (optional) decides a batch of unique case dicts, e.g. in a process pool."""
     builder = CaseBuilder()
-    _used, ignored = builder.known(header)
-    keyed: list[tuple[str | None, dict]] = []
-    unique: dict[str, dict] = {}
+    used, ignored = builder.known(header)
+    read = [c for c in used if c != "order_id"]
+    stamp = as_of.isoformat()
+    keyed: list[tuple | None] = []
+    unique: dict[tuple, dict] = {}
     for row in rows:
-        exam = resolve_exam(row.get("exam", ""), k)
         if not row.get("exam"):
-            keyed.append((None, {}))
+            keyed.append(None)
             continue
-        case = builder.case_dict(row, exam)
-        case["as_of"] = as_of.isoformat()
-        key = case_key(case)
-        unique.setdefault(key, case)
-        keyed.append((key, case))
+        key = tuple(row.get(c, "") for c in read)  # identical cases: every column read but order_id the same
+        if key not in unique:
+            case = builder.case_dict(row, resolve_exam(row["exam"], k))
+            case["as_of"] = stamp
+            unique[key] = case
+        keyed.append(key)
     keys = list(unique)
     if decide_many is not None:
         results = dict(zip(keys, decide_many([unique[q] for q in keys])))
@@ -271,7 +268,7 @@ def review_rows(header: list[str], rows: list[dict[str, str]], k: Any, as_of: dt
         if progress and len(keys) % step:
             progress(len(keys) % step)
     out_rows = []
-    for row, (key, case) in zip(rows, keyed):
+    for row, key in zip(rows, keyed):
         res = results[key] if key is not None else _rejected("column exam: empty; allowed: an exam id or a "
                                                              "local procedure code", k, {"as_of": as_of.isoformat()})
         out_rows.append({**row, **res})

@@ -15,7 +15,7 @@ from __future__ import annotations
 
 from typing import Any, Literal
 
-from pydantic import Field, ValidationError, model_validator
+from pydantic import Field, PrivateAttr, ValidationError, model_validator
 
 from . import models as m
 from ..errors import KnowledgeError
@@ -82,6 +82,10 @@ class Overlay(m.Strict):
         default_factory=dict, description="Local procedure code -> exam id")
     on_call: str | None = Field(None, description="Contact line for the on-call radiologist, shown on every decision",
                                 max_length=200)
+    _items: dict = PrivateAttr(default_factory=dict)  # agent id -> formulary item, built once
+
+    def model_post_init(self, _context: Any) -> None:
+        self._items.update({f.agent: f for f in self.formulary or []})
 
     @model_validator(mode="after")
     def _shape(self) -> "Overlay":
@@ -101,10 +105,10 @@ class Overlay(m.Strict):
         return self
 
     def stocked(self, agent_id: str) -> bool:
-        return self.formulary is None or any(f.agent == agent_id for f in self.formulary)
+        return self.formulary is None or agent_id in self._items
 
     def item(self, agent_id: str) -> Formulary | None:
-        return next((f for f in self.formulary or [] if f.agent == agent_id), None)
+        return self._items.get(agent_id)
 
     def preferred_for(self, exam_id: str, route: m.Route) -> str | None:
         exact = next((p.agent for p in self.preferred if p.exam == exam_id and p.route is route), None)
