@@ -10,6 +10,7 @@ CSV/XLSX that a spreadsheet would run as a formula are prefixed with ``'``.
 from __future__ import annotations
 
 import datetime as dt
+import operator
 import os
 import tempfile
 from collections import Counter
@@ -241,13 +242,22 @@ def review_rows(header: list[str], rows: list[dict[str, str]], k: Any, as_of: dt
     used, ignored = builder.known(header)
     read = [c for c in used if c != "order_id"]
     stamp = as_of.isoformat()
+    getter = operator.itemgetter(*read) if len(read) > 1 else None
+
+    def pick(row: dict) -> tuple:
+        if getter is not None:
+            try:
+                return getter(row)
+            except KeyError:  # a row without some columns (built by hand, not read from a file)
+                pass
+        return tuple(row.get(c, "") for c in read)
     keyed: list[tuple | None] = []
     unique: dict[tuple, dict] = {}
     for row in rows:
         if not row.get("exam"):
             keyed.append(None)
             continue
-        key = tuple(row.get(c, "") for c in read)  # identical cases: every column read but order_id the same
+        key = pick(row)  # identical cases: every column read but order_id the same
         if key not in unique:
             case = builder.case_dict(row, resolve_exam(row["exam"], k))
             case["as_of"] = stamp
