@@ -272,3 +272,14 @@ def test_serve_accepts_an_overlay(tmp_path):
     assert check_policy(EXAMPLE) is None
     bad = write(tmp_path, MINIMAL + "formulary: [{agent: iohexal, label: X}]\n")
     assert check_policy(bad).startswith("overlay.yaml: overlay.formulary[0].agent: 'iohexal' is not a known agent")
+
+
+def test_dose_and_knowledge_check_carry_the_overlay_hash(capsys):
+    k = load_knowledge(policy=EXAMPLE)
+    assert main(["dose", "--agent", "iohexol", "--exam", "ct-angiography-aorta", "--concentration", "350",
+                 "--policy", str(EXAMPLE)]) == 0
+    out = json.loads(capsys.readouterr().out)
+    assert (out["policy"], out["policy_version"], out["knowledge_version"]) == (
+        "harbourside-radiology", k.policy_version, k.version)
+    assert main(["knowledge", "check", "--policy", str(EXAMPLE)]) == 0
+    assert f"policy harbourside-radiology ({k.policy_version})" in capsys.readouterr().out
