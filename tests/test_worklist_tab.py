@@ -30,6 +30,10 @@ def test_upload_reviews_and_summarises():
     assert tab.progress.value == tab.progress.max == 8
     assert [r["order_id"] for r in tab.visible_rows()] == ["HS-1001", "HS-1002", "HS-1003", "HS-1005", "HS-1006",
                                                           "HS-1007", "HS-1008"]
+    assert "4 orders need action before 2026-12-02 16:00" in tab.summary.value
+    tab.before.value = "2026-12-02 00:00"  # tonight: premedication starting 22:15 (methylprednisolone 12 h)
+    assert "1 order needs action before 2026-12-02 00:00" in tab.summary.value
+    assert "2026-12-01 22:15  order HS-1003" in tab.summary.value
     tab.filter.value = "metformin"
     assert [r["order_id"] for r in tab.visible_rows()] == ["HS-1001", "HS-1008"]
     tab.filter.value = ""

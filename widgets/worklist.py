@@ -62,6 +62,11 @@ class WorklistTab(w.VBox):
         self.message.add_class("ca-worklist-error")
         self.summary = w.HTML("")
         self.summary.add_class("ca-worklist-summary")
+        self.before = w.Text(placeholder="YYYY-MM-DD HH:MM (default: 24 h after 'as of')",
+                             description="Action before")
+        self.before.add_class("ca-worklist-before")
+        self.before.observe(self._on_before, "value")
+        self._reviewed_as_of: dt.datetime | None = None
         self.status = w.Dropdown(options=STATUS_CHOICES, value="attention", description="Show")
         self.status.add_class("ca-worklist-status")
         self.filter = w.Text(placeholder="filter: order, exam, agent, flag…", description="Find")
@@ -87,7 +92,7 @@ class WorklistTab(w.VBox):
             "the case fields (see examples/worklist.csv). CSV, XLSX or Parquet, up to "
             f"{MAX_UPLOAD_BYTES // (1024 * 1024)} MB; longer lists: <code>contrast-aid review</code>. Times are "
             "worked out as of the main view's “Times as of”.</div>")
-        self.children = [hint, w.HBox([self.upload, self.progress]), self.message, self.summary,
+        self.children = [hint, w.HBox([self.upload, self.progress]), self.message, self.before, self.summary,
                          w.HBox([self.status, self.filter]), w.HBox([self.sort, self.descending]),
                          self.table, w.HBox([self.pick, self.open_button]), self.download]
 
@@ -139,9 +144,22 @@ class WorklistTab(w.VBox):
         return None
 
     # ---- output
+    def _on_before(self, change: dict) -> None:
+        if self.review is not None and self._reviewed_as_of is not None:
+            self._show_summary(self.review, self._reviewed_as_of)
+
+    def before_time(self, as_of: dt.datetime) -> dt.datetime:
+        """The "needs action before" time: the field's, else 24 h after the review's as-of time."""
+        text = self.before.value.strip()
+        try:
+            return dt.datetime.fromisoformat(text) if text else as_of + dt.timedelta(hours=24)
+        except ValueError:
+            return as_of + dt.timedelta(hours=24)
+
     def _show_summary(self, review: Review, as_of: dt.datetime) -> None:
         k = self._knowledge
-        lines = summary_lines(review, as_of + dt.timedelta(hours=24))
+        self._reviewed_as_of = as_of
+        lines = summary_lines(review, self.before_time(as_of))
         head = (f"Reviewed as of {as_of:%Y-%m-%d %H:%M} · policy {html.escape(k.policy.id)} ({k.policy_version}) · "
                 f"knowledge {k.version}")
         body = "".join(f"<div>{html.escape(line)}</div>" for line in lines)

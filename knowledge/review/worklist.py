@@ -309,7 +309,8 @@ def summary_lines(review: Review, before: dt.datetime | None = None) -> list[str
         lines.append("columns not read (passed through): " + ", ".join(review.ignored_columns))
     if before is not None:
         due = needs_action_before(review, before)
-        lines.append(f"{len(due)} orders need action before {_fmt(before)}" + (":" if due else ""))
+        verb = "order needs" if len(due) == 1 else "orders need"
+        lines.append(f"{len(due)} {verb} action before {_fmt(before)}" + (":" if due else ""))
         for r in sorted(due, key=lambda r: r["first_action_at"]):
             lines.append(f"  {r['first_action_at']}  order {r.get('order_id', '')}: {r['actions']}")
     for r in review.rows:
