@@ -252,7 +252,8 @@ def test_policy_diff_on_the_scenario_bank(tmp_path, capsys):
 
 def test_policy_diff_of_a_formulary_names_chosen_agent_changes(tmp_path, capsys):
     path = write(tmp_path, FORMULARY)
-    wl = write(tmp_path, "order_id,exam,age_years,sex,egfr\nN-1,ct-abdomen-pelvis,50,female,80\n"
+    path = write(tmp_path, FORMULARY + "procedure_codes: {NB-CTAP: ct-abdomen-pelvis}\n")
+    wl = write(tmp_path, "order_id,exam,age_years,sex,egfr\nN-1,NB-CTAP,50,female,80\n"
                          "N-2,ct-head-noncontrast,50,female,80\n", "list.csv")
     assert main(["policy", "diff", str(path), "--cases", str(wl), "--as-of", AS_OF]) == 0
     out = capsys.readouterr().out

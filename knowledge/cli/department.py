@@ -135,7 +135,7 @@ def cmd_policy_diff(args: argparse.Namespace) -> int:
         as_of = _as_of(args).isoformat()
         cases = []
         for row in rows:
-            c = builder.case_dict(row, row["exam"])
+            c = builder.case_dict(row, resolve_exam(row["exam"], k_new))  # local codes mean the same for both
             c["as_of"] = as_of
             cases.append((str(row.get("order_id", "")), c))
         what = f"{len(cases)} orders of {Path(args.cases).name}"
