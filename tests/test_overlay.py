@@ -284,3 +284,18 @@ def test_dose_and_knowledge_check_carry_the_overlay_hash(capsys):
         "harbourside-radiology", k.policy_version, k.version)
     assert main(["knowledge", "check", "--policy", str(EXAMPLE)]) == 0
     assert f"policy harbourside-radiology ({k.policy_version})" in capsys.readouterr().out
+
+
+def test_role_with_nothing_suitable_stocked_keeps_the_clinical_first_choice_and_says_so(tmp_path):
+    """This formulary stocks iopamidol and water only. An oesophagram's contrast role lists thin barium
+    first (exams.yaml) and iopamidol is not one of its usual agents, so no stocked usual agent suits the
+    role: the clinical first choice stays chosen, marked not stocked, with a caution; the stocked
+    iopamidol (not advised by mouth) is not chosen just because it is stocked."""
+    k = load_knowledge(policy=write(tmp_path, FORMULARY))
+    d = decide({**CT_CASE, "exam": "fluoro-esophagram"}, k)
+    first = d.roles[0]
+    pick = next(o for o in first.options if o.chosen)
+    assert pick.agent == "barium-thin" and pick.rank == 1 and pick.stocked is False
+    assert next(o for o in first.options if o.agent == "iopamidol").chosen is False
+    assert any(c.startswith("No stocked usual agent suits this role (oral") and "Thin barium" in c
+               for c in d.cautions)

@@ -1,11 +1,15 @@
 """The department stages of ``decide``: formulary, preferred agent, on-call line and the policy hash.
 
-Two hooks, both no-ops without an overlay (``knowledge/tables/overlay.py``) except for the policy hash:
+Three hooks, no-ops without an overlay (``knowledge/tables/overlay.py``) except for the policy hash:
 
-- :func:`rank_options` (after scoring a role): options are ranked by verdict, then stocked before not
-  stocked, then the department's preferred agent, then the exam's order of preference. The default
-  choice is the first *stocked* option; an agent that is not stocked is never chosen by default (only
-  when the case requests it, or when the formulary stocks nothing for the role, which a caution says).
+- :func:`rank_options` (after scoring a role): options are ranked by verdict (and the engine's own
+  tie-breaks, e.g. an earlier reaction's culprit last), then stocked before not stocked, then the
+  department's preferred agent, then the exam's order of preference.
+- :func:`stocked_choice` (after the engine's ``choose``): the default choice is the first stocked usual
+  agent of the role (exams.yaml) whose verdict is suitable, with or without precautions. An agent that is
+  not stocked is chosen only when the case requests it, or when no stocked usual agent suits the role:
+  then the engine's choice stands and a caution says it is not stocked here (a stocked agent that is not
+  advised is never chosen just because it is stocked).
 - :func:`department_stage` (after the plans): marks each option stocked or "not stocked here" with its
   local label, adds a caution when a better-rated agent is not stocked, the on-call contact line, and the
   policy hash (``Decision.policy_version``) beside the knowledge version.
@@ -36,7 +40,9 @@ def rank_options(k: Any, exam: m.Exam, role: m.ExamRole, scored: list) -> list:
         scored.sort(key=lambda s: s.order)
         return scored
     preferred = ov.preferred_for(exam.id, role.route)
-    scored.sort(key=lambda s: (s.order[0], not ov.stocked(s.agent.id), s.agent.id != preferred, s.order[1:]))
+    # the engine's order is (verdict, its tie-breaks…, exam preference): the department's keys go
+    # just before the exam preference
+    scored.sort(key=lambda s: (*s.order[:-1], not ov.stocked(s.agent.id), s.agent.id != preferred, s.order[-1]))
     return scored
 
 
@@ -85,8 +91,12 @@ def department_stage(case: m.Case, k: Any, decision: m.Decision) -> m.Decision:
                 o.actions.insert(0, f"Stocked here as {label!r}" + (f" (strengths held: {held})" if held else ""))
         chosen = next((o for o in options if o.chosen), None)
         if chosen is not None and chosen.stocked is False:
-            why = "requested" if case.agent == chosen.agent else "the formulary stocks no agent for this role"
-            cautions.append(f"{chosen.name} ({rd.route.value}) is not stocked here ({why})")
+            if case.agent == chosen.agent:
+                cautions.append(f"{chosen.name} ({rd.route.value}) is not stocked here (requested)")
+            else:
+                cautions.append(f"No stocked usual agent suits this role ({rd.route.value}, {rd.purpose}): "
+                                f"{chosen.name} is shown as the choice but is not stocked here; obtain it or "
+                                "choose another approach")
         elif chosen is not None:
             better = [o for o in options if o.stocked is False and o.verdict.severity < chosen.verdict.severity]
             if better:
