@@ -268,3 +268,19 @@ def test_no_progress_bar_when_not_a_terminal(tmp_path, capsys):
     src = write_csv(tmp_path / "l.csv", ["order_id", "exam"], [[str(i), "ct-chest"] for i in range(5)])
     code, _, err = run(["review", str(src), "--as-of", AS_OF], capsys)
     assert code == 0 and err == ""
+
+
+def test_failed_write_is_one_line_and_leaves_nothing(tmp_path, capsys):
+    """A disk error while writing (simulated) is a one-line message, exit 2, and no file or temporary file."""
+    k = load_knowledge()
+    header, rows = wl.read_worklist(SAMPLE)
+    review = wl.review_rows(header, rows, k, dt.datetime(2026, 12, 1, 16))
+
+    def disk_full(frame, path, ext):
+        path.write_text("order_id", encoding="utf-8")
+        raise OSError(28, "No space left on device")
+
+    with pytest.raises(wl.WorklistError) as err:
+        wl.write_reviewed(review, tmp_path / "out.csv", writer=disk_full)
+    assert str(err.value) == f"-o {tmp_path / 'out.csv'}: not written (No space left on device); nothing was changed"
+    assert list(tmp_path.iterdir()) == []

@@ -342,16 +342,21 @@ def write_reviewed(review: Review, out: str | os.PathLike,
     folder = target.parent if str(target.parent) else Path(".")
     if not folder.is_dir():
         raise WorklistError(f"-o {target}: folder {folder} does not exist")
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=folder)
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=folder)
+    except OSError as exc:
+        raise WorklistError(f"-o {target}: cannot write in {folder} ({exc.strerror})") from None
     os.close(fd)
     try:
         (writer or _write)(frame, Path(tmp), ext)
         os.replace(tmp, target)
-    except BaseException:
+    except BaseException as exc:
         try:
             os.unlink(tmp)
         except FileNotFoundError:
             pass
+        if isinstance(exc, OSError):
+            raise WorklistError(f"-o {target}: not written ({exc.strerror or exc}); nothing was changed") from None
         raise
     return target
 
