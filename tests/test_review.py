@@ -284,3 +284,18 @@ def test_failed_write_is_one_line_and_leaves_nothing(tmp_path, capsys):
         wl.write_reviewed(review, tmp_path / "out.csv", writer=disk_full)
     assert str(err.value) == f"-o {tmp_path / 'out.csv'}: not written (No space left on device); nothing was changed"
     assert list(tmp_path.iterdir()) == []
+
+
+def test_progress_reaches_the_row_count_and_windows_csv_reads():
+    k = load_knowledge()
+    header, rows = wl.read_worklist(SAMPLE)
+    ticks: list[int] = []
+    wl.review_rows(header, rows * 3, k, dt.datetime(2026, 12, 1, 16), progress=ticks.append)
+    assert sum(ticks) == 24  # 8 distinct cases, 24 rows
+
+
+def test_cp1252_csv(tmp_path):
+    p = tmp_path / "win.csv"
+    p.write_bytes("order_id,exam,ward\nW1,ct-chest,Salle \xe9t\xe9\n".encode("latin-1"))
+    header, rows = wl.read_worklist(p)
+    assert rows[0]["ward"] == "Salle \u00e9t\u00e9"

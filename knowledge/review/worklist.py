@@ -76,7 +76,10 @@ def read_worklist(path: str | os.PathLike) -> tuple[list[str], list[dict[str, st
                             f"{', '.join(FORMATS)}")
     try:
         if ext == ".csv":
-            frame = pd.read_csv(p, dtype=str, keep_default_na=False, encoding="utf-8-sig")
+            try:
+                frame = pd.read_csv(p, dtype=str, keep_default_na=False, encoding="utf-8-sig")
+            except UnicodeDecodeError:  # a spreadsheet's "CSV" in the Windows code page
+                frame = pd.read_csv(p, dtype=str, keep_default_na=False, encoding="cp1252")
         elif ext == ".xlsx":
             frame = pd.read_excel(p, dtype=str, keep_default_na=False, engine="openpyxl")
         else:
@@ -275,8 +278,8 @@ def review_rows(header: list[str], rows: list[dict[str, str]], k: Any, as_of: dt
             results[q] = review_case(unique[q], k, builder)
             if progress and i % step == 0:
                 progress(step)
-        if progress and len(keys) % step:
-            progress(len(keys) % step)
+        if progress and len(rows) > len(keys) - len(keys) % step:  # the rest, repeated cases included
+            progress(len(rows) - (len(keys) - len(keys) % step))
     out_rows = []
     for row, key in zip(rows, keyed):
         res = results[key] if key is not None else _rejected("column exam: empty; allowed: an exam id or a "
