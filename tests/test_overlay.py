@@ -18,6 +18,7 @@ from knowledge.cli.main import main
 from knowledge.decision.engine import decide
 from knowledge.errors import KnowledgeError
 from knowledge.tables.loader import load_knowledge
+from knowledge.tables.overlay import THRESHOLDS
 
 ROOT = Path(__file__).resolve().parents[1]
 EXAMPLE = ROOT / "examples" / "department-overlay.yaml"
@@ -94,10 +95,7 @@ def test_every_decision_carries_policy_id_and_hash(tmp_path):
     ("thresholds: {egfr_hydration_below: 300}\n",
      "overlay.yaml: overlay.thresholds.egfr_hydration_below: 300 is out of range; allowed: at most 120"),
     ("thresholds: {bsa_formula: 1}\n", "overlay.yaml: overlay.thresholds.bsa_formula: not a numeric policy setting; "
-                                       "allowed: egfr_prophylaxis_consider_below, egfr_hydration_below, "
-                                       "egfr_first_pass_hydration_below, metformin_hold_egfr_below, "
-                                       "radioiodine_delay_weeks, iodine_g_per_gfr_max, first_pass_iodine_g_per_gfr_max, "
-                                       "hydration_ml_kg_h, hydration_hours_before, hydration_hours_after"),
+                                       "allowed: " + ", ".join(THRESHOLDS)),
     ("creatinine_freshness: {outpatient_days: 0, inpatient_days: 1}\n",
      "overlay.yaml: overlay.creatinine_freshness.outpatient_days: 0 is out of range; allowed: more than 0"),
     ("premedication: {elective: prednisone-13h, accelerated: hydrocortisone-now}\n",
@@ -119,6 +117,7 @@ def test_every_decision_carries_policy_id_and_hash(tmp_path):
      "`contrast-aid exams`"),
 ])
 def test_invalid_overlays_have_pinned_messages(tmp_path, extra, message):
+    assert {"egfr_hydration_below", "hydration_hours_after"} <= set(THRESHOLDS) and "bsa_formula" not in THRESHOLDS
     path = write(tmp_path, MINIMAL + extra)
     with pytest.raises(KnowledgeError) as err:
         load_knowledge(policy=path)
@@ -245,9 +244,15 @@ def test_policy_diff_on_the_scenario_bank(tmp_path, capsys):
     path = write(tmp_path, MINIMAL + "thresholds: {egfr_first_pass_hydration_below: 45}\n")
     assert main(["policy", "diff", str(path)]) == 0
     out = capsys.readouterr().out
-    # the one scenario with first-pass exposure and eGFR between 30 and 45 (tests/vectors/scenarios.yaml)
-    assert "- visceral-angio-first-pass-default-policy (angio-visceral-renal):\n    hydration: False -> True\n" in out
-    assert out.splitlines()[-1].startswith("1 of ")
+    # the scenario with first-pass exposure and an eGFR between 30 and 45 (tests/vectors/scenarios.yaml):
+    # hydration becomes indicated (ACR-NKF 2020 threshold 30 -> the ESUR v10 first-pass threshold 45)
+    block = out.split("- visceral-angio-first-pass-default-policy (angio-visceral-renal):\n")[1].split("\n- ")[0]
+    assert "    hydration: False -> True" in block.splitlines()
+    changed = [line for line in out.splitlines() if line.startswith("- ")]
+    total = int(out.splitlines()[0].split("; ")[-1].split()[0])
+    assert out.splitlines()[-1] == f"{len(changed)} of {total} changed, {total - len(changed)} unchanged"
+    # only cases with first-pass or intra-arterial exposure can change
+    assert all("angio-" in line for line in changed)
 
 
 def test_policy_diff_of_a_formulary_names_chosen_agent_changes(tmp_path, capsys):

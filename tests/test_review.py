@@ -64,7 +64,8 @@ def test_columns_follow_the_case_model():
         if name not in ("exam", "patient", "as_of", "agent"):
             assert name in names, name
     reactions = next(c for c in case_columns() if c.name == "prior_reactions")
-    assert reactions.parts == ("agent_family", "kind", "severity", "agent")
+    assert reactions.parts[:4] == ("agent_family", "kind", "severity", "agent")
+    assert reactions.parts == tuple(m.PriorReaction.model_fields)  # a field added to the model is a part
 
 
 def test_row_to_case_flattening():
@@ -92,7 +93,9 @@ def test_sample_worklist_mixed_exit_1_and_rows_in_order(tmp_path, capsys):
     src = read_csv(SAMPLE)
     assert [r["order_id"] for r in rows] == [r["order_id"] for r in src]
     by = {r["order_id"]: r for r in rows}
-    assert [by[i]["status"] for i in ("HS-1004", "HS-1006", "HS-1007")] == ["ok", "rejected", "rejected"]
+    assert [by[i]["status"] for i in ("HS-1005", "HS-1006", "HS-1007")] == ["ok", "rejected", "rejected"]
+    # suspected perforation: the engine's warning that the gas-distension role is not used flags the order
+    assert by["HS-1004"]["status"] == "flagged" and by["HS-1004"]["alerts"].startswith("WARN: No agent can be used")
     assert by["HS-1006"]["reason"] == "column creatinine_unit: 'mmol' is not allowed; allowed: 'mg/dL' or 'umol/L'"
     assert by["HS-1007"]["reason"].startswith("column exam: 'ct-mystery' is not a known exam")
     # local code HSCT-AP mapped by the overlay; metformin held from the exam time, re-check 48 h later (ACR Manual)

@@ -28,7 +28,7 @@ def test_upload_reviews_and_summarises():
     assert review.counts() == {"ok": 1, "flagged": 5, "rejected": 2}
     assert "8 orders: 1 ok, 5 flagged, 2 rejected" in tab.summary.value
     assert tab.progress.value == tab.progress.max == 8
-    assert [r["order_id"] for r in tab.visible_rows()] == ["HS-1001", "HS-1002", "HS-1003", "HS-1005", "HS-1006",
+    assert [r["order_id"] for r in tab.visible_rows()] == ["HS-1001", "HS-1002", "HS-1003", "HS-1004", "HS-1006",
                                                           "HS-1007", "HS-1008"]
     assert "4 orders need action before 2026-12-02 16:00" in tab.summary.value
     tab.before.value = "2026-12-02 00:00"  # tonight: premedication starting 22:15 (methylprednisolone 12 h)
@@ -38,7 +38,7 @@ def test_upload_reviews_and_summarises():
     assert [r["order_id"] for r in tab.visible_rows()] == ["HS-1001", "HS-1008"]
     tab.filter.value = ""
     tab.status.value = "ok"
-    assert [r["order_id"] for r in tab.visible_rows()] == ["HS-1004"]
+    assert [r["order_id"] for r in tab.visible_rows()] == ["HS-1005"]
     tab.status.value = "all"
     tab.sort.value = "first_action_at"
     tab.descending.value = True

@@ -150,6 +150,11 @@ def summarise_decision(d: m.Decision, case: m.Case) -> dict[str, Any]:
         flags.append("creatinine needed")
     elif r.creatinine_stale:
         flags.append("creatinine stale")
+    for alert in getattr(d, "alerts", None) or []:  # the engine's stop / warn alerts, most severe first
+        alerts.append(f"{alert.level.upper()}: {alert.text}")
+        flags.append("stop" if alert.level == "stop" else "warning")
+    if getattr(d, "cannot_proceed_reason", None):
+        flags.append("cannot proceed as requested")
     alerts += r.warnings + d.premedication.warnings
     limits = r.dose_limits
     if limits and (limits.iodine_g_per_gfr_exceeded or limits.cigarroa_exceeded):  # not "not worked out" notes

@@ -15,7 +15,7 @@ from __future__ import annotations
 
 from typing import Any, Literal
 
-from pydantic import Field, PrivateAttr, ValidationError, model_validator
+from pydantic import Field, PrivateAttr, ValidationError, field_validator, model_validator
 
 from . import models as m
 from ..errors import KnowledgeError
@@ -53,8 +53,15 @@ class Preferred(m.Strict):
 class Premedication(m.Strict):
     """The premedication regimens the department uses (a subset of its base profile's regimens)."""
 
-    elective: str = Field(description="Id of the elective regimen (a regimen of the base profile)")
+    elective: list[str] = Field(
+        description="Ids of the elective regimens in the order they are tried (regimens of the base profile); "
+                    "one id is a list of one", min_length=1)
     accelerated: str = Field(description="Id of the accelerated regimen (a regimen of the base profile)")
+
+    @field_validator("elective", mode="before")
+    @classmethod
+    def _one_or_many(cls, value: Any) -> Any:
+        return [value] if isinstance(value, str) else value
 
 
 class Freshness(m.Strict):
@@ -140,14 +147,16 @@ def merge_policy(base: m.Policy, ov: Overlay, filename: str) -> m.Policy:
         data["creatinine_max_age_days_inpatient"] = ov.creatinine_freshness.inpatient_days
     if ov.premedication is not None:
         known = [r["id"] for r in data["regimens"]]
-        for key in ("elective", "accelerated"):
-            rid = getattr(ov.premedication, key)
+        pm = ov.premedication
+        for key, rid in [("elective", e) for e in pm.elective] + [("accelerated", pm.accelerated)]:
             if rid not in known:
                 raise KnowledgeError(f"{filename}: overlay.premedication.{key}: {rid!r} is not a regimen of base "
                                      f"{ov.base}; allowed: {', '.join(known)}")
-        used = (ov.premedication.elective, ov.premedication.accelerated)
+        used = [*pm.elective, pm.accelerated]
         data["regimens"] = [r for r in data["regimens"] if r["id"] in used]
-        data["premedication_regimen"], data["premedication_accelerated_regimen"] = used
+        data["premedication_regimen"], data["premedication_accelerated_regimen"] = pm.elective[0], pm.accelerated
+        if "elective_regimens" in data:  # tried in this order before the accelerated one
+            data["elective_regimens"] = list(pm.elective)
     try:
         return m.Policy.model_validate(data)
     except ValidationError as exc:

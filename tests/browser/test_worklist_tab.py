@@ -64,7 +64,7 @@ def test_upload_filter_open_and_download(page, overlay_server, tmp_path):
     assert "2026-12-01 22:15 order HS-1003: premedication (methylprednisolone-12h)" in summary
     # default view: flagged and rejected orders, in list order
     page.wait_for_function(f"() => ({_TABLE_ROWS_JS})().length === 7")
-    assert page.evaluate(_TABLE_ROWS_JS) == ["HS-1001", "HS-1002", "HS-1003", "HS-1005", "HS-1006", "HS-1007",
+    assert page.evaluate(_TABLE_ROWS_JS) == ["HS-1001", "HS-1002", "HS-1003", "HS-1004", "HS-1006", "HS-1007",
                                               "HS-1008"]
     screenshot(page, "worklist-uploaded")
     # filter by a word of the flags
