@@ -207,8 +207,10 @@ def held_strengths(ov: Overlay, agent: m.Agent) -> m.Agent:
     item = ov.item(agent.id)
     if item is None or not item.concentrations:
         return agent
-    return agent.model_copy(update={"concentrations": [c for c in agent.concentrations
-                                                       if c.value in item.concentrations]})
+    update: dict[str, Any] = {"concentrations": [c for c in agent.concentrations if c.value in item.concentrations]}
+    if getattr(agent, "intrathecal_strengths", None):  # only the held ones can be planned intrathecally
+        update["intrathecal_strengths"] = [v for v in agent.intrathecal_strengths if v in item.concentrations]
+    return agent.model_copy(update=update)
 
 
 def changes(base: m.Policy, merged: m.Policy, ov: Overlay) -> list[str]:
