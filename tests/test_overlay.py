@@ -304,3 +304,16 @@ def test_role_with_nothing_suitable_stocked_keeps_the_clinical_first_choice_and_
     assert next(o for o in first.options if o.agent == "iopamidol").chosen is False
     assert any(c.startswith("No stocked usual agent suits this role (oral") and "Thin barium" in c
                for c in d.cautions)
+
+
+def test_formulary_labels_any_catalogue_unit(tmp_path):
+    """Every strength unit of the catalogue (models.Unit) has words in the 'Stocked here as' line."""
+    from knowledge.decision.department import _strengths
+    from knowledge.tables import models as mm
+
+    k = load_knowledge()
+    for agent in k.agents.values():
+        text = _strengths(agent)
+        for c in agent.concentrations:
+            assert c.unit.value not in text, (agent.id, text)  # shown in words, not as the enum key
+    assert {u.value for u in mm.Unit} <= {"mg_i_per_ml", "percent_w_v", "percent_w_w", "mmol_per_ml"}

@@ -61,8 +61,8 @@ def stocked_choice(k: Any, case: m.Case, role: m.ExamRole, scored: list, chosen_
 
 
 def _strengths(agent: m.Agent) -> str:
-    unit = {"mg_i_per_ml": "mg I/mL", "percent_w_v": "% w/v", "percent_w_w": "% w/w"}
-    return ", ".join(f"{c.value:g} {unit[c.unit.value]}" for c in agent.concentrations)
+    unit = {"mg_i_per_ml": "mg I/mL", "percent_w_v": "% w/v", "percent_w_w": "% w/w", "mmol_per_ml": "mmol/mL"}
+    return ", ".join(f"{c.value:g} {unit.get(c.unit.value, c.unit.value)}" for c in agent.concentrations)
 
 
 def department_stage(case: m.Case, k: Any, decision: m.Decision) -> m.Decision:
