@@ -41,7 +41,7 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     times = []
     with dashboard_page("exam=fluoro-esophagram", {"width": 1400, "height": 1000}) as page:
-        page.wait_for_selector(".js-plotly-plot .main-svg", timeout=120_000)
+        page.wait_for_selector(".ca-summary", timeout=120_000)  # a swallow shows no plots (none apply)
         for i in range(args.rounds + 2):
             want = "contraindicated" if i % 2 == 0 else "● suitable"
             ms = page.evaluate(ROUND_JS, want)

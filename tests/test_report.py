@@ -39,7 +39,9 @@ def test_case_from_query_and_back():
     assert case.patient.creatinine.value == 1.4 and case.patient.age_years == 60
     assert case.patient.takes_metformin
     assert case.patient.prior_reactions[0].agent == "iohexol"
-    assert query_from_case(case) == q
+    # the same keys and values (links are written in the model's field order)
+    assert sorted(query_from_case(case).split("&")) == sorted(q.split("&"))
+    assert query_from_case(parse_case(case_from_query(query_from_case(case)))) == query_from_case(case)
     assert parse_case(case_from_query(query_from_case(case))) == case
 
 
@@ -48,7 +50,9 @@ def test_exam_time_and_sample_date_travel_in_the_link():
     case = parse_case(case_from_query(q))
     assert case.scheduled_at.isoformat() == "2026-12-02T09:00:00"
     assert str(case.patient.creatinine.measured_on) == "2026-11-30" and case.patient.diabetes
-    assert query_from_case(case) == q
+    # the same keys and values (links are written in the model's field order)
+    assert sorted(query_from_case(case).split("&")) == sorted(q.split("&"))
+    assert query_from_case(parse_case(case_from_query(query_from_case(case)))) == query_from_case(case)
 
 
 def test_query_ignores_unknown_keys_and_maps_units():

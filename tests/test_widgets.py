@@ -12,6 +12,7 @@ from __future__ import annotations
 
 
 import datetime as dt
+import html
 
 import pytest
 
@@ -106,7 +107,7 @@ def test_out_of_range_value_is_named_and_decision_greyed(app):
     assert app.decision is not None
     app.patient.age_years.value = "130"
     assert app.decision is None and app.stale
-    assert any("age_years" in e and "130" in e and "120" in e for e in app.errors)
+    assert any(e.startswith("Age:") and "130" in e and "120" in e for e in app.errors)  # the form's label
     label = app.patient.errors["age_years"]
     assert "ca-error" in label._dom_classes and "130" in label.value and label.layout.display is None
     assert "ca-stale" in app.panel.body._dom_classes
@@ -125,14 +126,15 @@ def test_creatinine_outside_equation_range_is_an_error(app):
     p.creatinine_unit.value = "umol/L"
     p.creatinine_value.value = "2500"  # 28 mg/dL: outside 0.1-20 mg/dL of CKD-EPI 2021
     assert app.decision is None
-    assert app.errors and "creatinine" in app.errors[0]
+    # said in the unit typed: 0.1-20 mg/dL is 9-1768 umol/L (x 88.4)
+    assert app.errors and app.errors[0] == "Creatinine: 2500 µmol/L is out of range; allowed: 9–1768 µmol/L"
     assert app.patient.errors["creatinine"].value
 
 
 def test_text_that_is_not_a_number_is_reported(app):
     app.patient.weight_kg.value = "heavy"
     assert app.decision is None
-    assert "weight_kg" in app.patient.errors["weight_kg"].value
+    assert app.patient.errors["weight_kg"].value.startswith("Weight: ")  # the form's label, not the path
 
 
 def test_reaction_editor_add_and_remove(app):
@@ -236,3 +238,72 @@ def test_requested_agent_is_planned(app):
     chosen = next(o for o in app.decision.roles[0].options if o.chosen)
     assert chosen.agent == "iodixanol"
     assert "planned" in next(c for c in _cards(app) if "Iodixanol" in c)
+
+
+# ---- the plan on top (issue 10) -------------------------------------------------------------------
+def test_summary_hooks_copy_text_and_what_changed(app):
+    assert "ca-summary" in app.summary.body._dom_classes
+    buttons = app.summary.buttons.value
+    assert 'class="ca-copy-summary' in buttons and 'class="ca-copy-link' in buttons
+    assert app.summary.text.startswith("Plan: CT abdomen and pelvis")
+    assert f'data-ca-copy-link="{html.escape(app.query)}"' in buttons
+    assert app.summary.changes.value == ""  # nothing to compare on the first view
+    app.exam.select.value = "fluoro-esophagram"
+    app.patient.perforation_suspected.value = True
+    changes = app.summary.changes.value
+    assert "ca-changes" in changes
+    # barium-perforation (common practice): barium is contraindicated when a leak is suspected
+    assert "Thin barium sulfate suspension (oral): suitable → contraindicated" in html.unescape(changes)
+    app.patient.weight_kg.value = "70"  # no dose for a swallow: the plan does not change, and it says so
+    assert "nothing in the plan" in app.summary.changes.value
+    app.patient.pregnant.value = True  # a new caution is a change
+    assert "new caution: Pregnant" in app.summary.changes.value
+
+
+def test_only_the_plots_that_apply_are_shown(app):
+    # CT abdomen and pelvis has an intravenous role: the kidney plots apply
+    assert app.plot_boxes["egfr"].layout.display is None and app.plot_boxes["whatif"].layout.display is None
+    app.exam.select.value = "fluoro-esophagram"  # oral only: no renal exposure, no dose, no timed action
+    assert all(box.layout.display == "none" for box in app.plot_boxes.values())
+    assert app.plots_box.layout.display == "none"
+
+
+def test_other_agents_possible_by_the_route_are_folded_apart(app):
+    app.patient.age_years.value = "60"
+    oral = app.panel.roles_box.children[1].ruled.value  # CT abdomen and pelvis, oral role
+    assert "Other agents possible by this route" in oral and "<details class='ca-other'>" in oral
+    assert "protocol order 1" in app.option_cards()[0] and "rank" not in app.option_cards()[0]
+
+
+def test_stale_creatinine_is_flagged_at_the_egfr_readout():
+    # the default policy accepts a creatinine up to 30 days old for an outpatient
+    # (creatinine_max_age_days_outpatient, ACR Manual on Contrast Media)
+    app = ContrastAidApp(query="exam=ct-abdomen-pelvis&at=2026-03-11T09:00&asof=2026-03-10T14:00&creatinine=1.0"
+                               "&unit=mg/dL&measured=2026-01-01&age=70&sex=male")
+    readout = app.patient.egfr_readout.value
+    assert "Creatinine too old" in readout and "2 months ago" in readout  # 69 days and "last 30 days" in readout
+
+
+def test_short_note_and_copy_button(app):
+    text = app.note.text
+    assert 0 < len(text.splitlines()) <= 12
+    assert 'class="ca-copy-note' in app.note.short.value
+    assert html.escape(text) in app.note.short.value
+
+
+def test_creatinine_in_the_wrong_unit_says_so(app):
+    app.patient.creatinine_value.value = "99"  # mg/dL chosen
+    assert app.decision is None
+    assert "did you mean µmol/L?" in app.patient.errors["creatinine"].value
+    assert "ca-invalid" in app.patient.creatinine_value._dom_classes
+
+
+def test_an_edited_link_applied_to_the_page_says_what_changed(app):
+    app.open_link("http://127.0.0.1:8866/?exam=fluoro-esophagram&age=50")
+    assert app.decision.exam == "fluoro-esophagram" and app.patient.age_years.value == "50"
+    first = app.query
+    app.open_link("?" + first + "&perforation=1")  # the same link, edited
+    assert app.patient.perforation_suspected.value is True and app.patient.age_years.value == "50"
+    assert "suitable → contraindicated" in html.unescape(app.summary.changes.value)
+    app.open_link("exam=fluoro-esophagram")  # a link without the age: the form is cleared first
+    assert app.patient.age_years.value == "" and app.patient.perforation_suspected.value is False

@@ -19,15 +19,16 @@ from knowledge.tables import models as m
 from knowledge.decision.engine import DECISION_SUPPORT, parse_case
 from knowledge.decision.engine import decide
 from knowledge.errors import ContrastAidError
-from knowledge.present.form import case_problems
+from knowledge.present.form import case_problems, creatinine_message, field_message, typed_case
 from knowledge.present.links import case_from_query, query_from_case
 from knowledge.tables.loader import Knowledge, load_knowledge
-from knowledge.present.report import protocol_note_html, protocol_note_markdown, timeline
+from knowledge.present.report import protocol_note_html, protocol_note_markdown, short_note, timeline
+from knowledge.present.summary import decision_changes, human_ago, plan_summary
 from knowledge.present.whatif import WhatIf, egfr_sweep
 
 from . import plots
-from .decision import DecisionPanel
-from .inputs import ExamPicker, PatientPanel
+from .decision import DecisionPanel, SummaryPanel
+from .inputs import CaseModel, ExamPicker, PatientPanel
 from .panels import KnowledgeBrowser, ProtocolNote
 from .style import CSS
 from .worklist import worklist_section
@@ -75,24 +76,34 @@ class ContrastAidApp(w.VBox):
         self.caution = w.HTML(f"<div>{html.escape(CAUTION)}</div>")
         self.caution.add_class("ca-caution")
         title = w.HTML(
-            "<h2 style='margin:4px 0'>contrast-aid · choosing a contrast agent</h2>"
+            "<h1 class='ca-title'>contrast-aid · choosing a contrast agent</h1>"
             f"<div class='ca-hint'>Knowledge {k.version} · policy {html.escape(k.policy.name)} · "
             "no patient identifiers are asked for or kept</div>")
-        self.exam = ExamPicker(k, clock)
+        title.add_class("ca-header")
+        self.model = CaseModel()  # the case as typed; the controls write it, recompute observes it
+        self.exam = ExamPicker(k, clock, self.model)
         self.exam.set_as_of(None)
-        self.patient = PatientPanel(k)
+        self.patient = PatientPanel(k, self.model)
+        self._batch = False
         self.panel = DecisionPanel(k)
+        self.summary = SummaryPanel()
+        self._last_decision: m.Decision | None = None
         self.egfr_out = plots.plot_output()
         self.whatif_out = plots.plot_output()
         self.timeline_out = plots.plot_output()
         self.dose_out = plots.plot_output()
         self.egfr_fig = plots.egfr_figure(k)
-        self.plots_box = w.VBox([
-            w.HTML('<div class="ca-group-head">Where this eGFR sits (KDIGO bands, policy thresholds)</div>'),
-            self.egfr_out,
-            w.HTML('<div class="ca-group-head">What if kidney function were different?</div>'), self.whatif_out,
-            w.HTML('<div class="ca-group-head">Timed actions</div>'), self.timeline_out,
-            w.HTML('<div class="ca-group-head">Dose plan</div>'), self.dose_out])
+        def plot_box(title: str, out: w.Output) -> w.VBox:
+            return w.VBox([w.HTML(f'<h3 class="ca-group-head">{title}</h3>'), out],
+                          layout=w.Layout(display="none"))
+
+        self.plot_boxes = {
+            "egfr": plot_box("Where this eGFR sits (KDIGO bands, policy thresholds)", self.egfr_out),
+            "whatif": plot_box("What if kidney function were different?", self.whatif_out),
+            "timeline": plot_box("Timed actions", self.timeline_out),
+            "dose": plot_box("Dose plan", self.dose_out)}
+        self.plots_box = w.VBox([w.HTML('<h2 class="ca-section-head">Plots</h2>'), *self.plot_boxes.values()])
+        self.plots_box.add_class("ca-plots")
         self.note = ProtocolNote()
         self._browser: KnowledgeBrowser | None = None
         self._browser_slot = w.VBox([w.HTML("<div class='ca-hint'>Opening the tables…</div>")])
@@ -100,18 +111,31 @@ class ContrastAidApp(w.VBox):
         browser_box.set_title(0, "Knowledge tables and policy in force")
         browser_box.observe(self._on_browser_open, "selected_index")
 
-        left = w.VBox([self.exam, self.patient], layout=w.Layout(width="460px", padding="0 12px 0 0"))
-        right = w.VBox([self.panel, self.plots_box, self.note], layout=w.Layout(width="680px"))
-        self.children = [w.HTML(CSS), title, self.caution,
-                         w.HBox([left, right], layout=w.Layout(flex_flow="row wrap", align_items="flex-start")),
-                         browser_box]
-        self.children += (worklist_section(self),)  # the worklist tab (widgets/worklist.py)
+        self.link_text = w.Text(description="Open a case link", placeholder="paste a shared link (or its ?query)",
+                                style={"description_width": "initial"}, layout=w.Layout(width="100%"))
+        self.link_text.add_class("ca-open-link")
+        self.link_button = w.Button(description="open", tooltip="fill the form from the pasted link",
+                                    layout=w.Layout(width="70px"))
+        self.link_button.on_click(lambda b: self.open_link(self.link_text.value))
+        left = w.VBox([w.HTML('<h2 class="ca-section-head">The case</h2>'), self.exam, self.patient,
+                       w.HTML('<h3 class="ca-group-head">Shared link</h3>'),
+                       w.HBox([self.link_text, self.link_button], layout=w.Layout(width="100%"))])
+        left.add_class("ca-inputs")
+        right = w.VBox([self.panel, self.plots_box, self.note])
+        right.add_class("ca-details")
+        main = w.Box([self.summary, left, right])
+        main.add_class("ca-main")
+        browser_box.add_class("ca-browser-box")
+        self.children = [w.HTML(CSS), title, self.caution, main, browser_box]
+        worklist_box = worklist_section(self)  # the worklist tab (widgets/worklist.py)
+        worklist_box.add_class("ca-worklist-box")  # not printed
+        self.children += (worklist_box,)
 
         if query:
             self.prefill(query)
-        self.exam.observe(self._on_input, "revision")
-        self.patient.observe(self._on_input, "revision")
+        self.model.observe(self._on_input)
         self.recompute()
+        self._say_changes = True  # from now on, each input change says what changed in the plan
         if defer_plots:
             self._draw_plots_when_connected()
 
@@ -169,7 +193,27 @@ class ContrastAidApp(w.VBox):
     # ---- input
     def prefill(self, query: str) -> None:
         """Fill the form from a URL query string (see knowledge.present.links.case_from_query)."""
-        data = case_from_query(query)
+        self._batch = True  # one recompute at the end, not one per field
+        try:
+            self._prefill(case_from_query(query))
+        finally:
+            self._batch = False
+        if getattr(self, "_say_changes", False):  # a link applied to a running page
+            self.recompute()
+
+    def open_link(self, link: str) -> None:
+        """Apply a shared link (or an edited one) to the running page: the form is cleared, filled from the
+        link, and the summary says what changed against the plan shown before."""
+        query = link.split("?", 1)[1] if "?" in link else link
+        self._batch = True
+        try:
+            self.exam.clear()
+            self.patient.clear()
+        finally:
+            self._batch = False
+        self.prefill(query)
+
+    def _prefill(self, data: dict[str, Any]) -> None:
         notes: list[str] = []
         if "exam" in data:
             msg = self.exam.set_exam(data["exam"])
@@ -192,22 +236,24 @@ class ContrastAidApp(w.VBox):
             self.exam.scheduled.value = data["scheduled_at"].replace("T", " ")
         if data.get("as_of"):
             self.exam.set_as_of(data["as_of"], "the time in the link")
+        notes += self.exam.set_extras(data)
         notes += self.patient.set_patient(data.get("patient", {}))
         self.link_notes = notes
 
     def case_data(self) -> dict[str, Any]:
-        data = self.exam.case_part()
-        data["patient"] = self.patient.patient_data()
-        return data
+        """The case as typed (strings for numbers), from the case model."""
+        return self.model.case_data()
 
     def _on_input(self, change: dict) -> None:
+        if self._batch:
+            return
         self.link_notes = []
         self.recompute()
 
     # ---- compute and show
     def recompute(self) -> m.Decision | None:
-        data = self.case_data()
-        problems = case_problems(data)
+        data = typed_case(self.case_data())
+        problems = case_problems(data) or self._unit_problems(data)
         case = decision = None
         if not problems:
             try:
@@ -215,7 +261,8 @@ class ContrastAidApp(w.VBox):
                 decision = decide(case, self.knowledge)
                 self._update_whatif(case)
             except ContrastAidError as exc:
-                problems = [(exc.field or exc.message.split(":")[0], exc.message)]
+                problems = [(exc.field or "", exc.message)]
+        problems = [(f, self._in_form_words(f, msg, data)) for f, msg in problems]
         by_field: dict[str, list[str]] = {}
         for field, message in problems:
             by_field.setdefault(_field_key(field), []).append(message)
@@ -230,6 +277,8 @@ class ContrastAidApp(w.VBox):
             self.panel.set_stale(True, [msg for _, msg in problems])
             self.plots_box.add_class("ca-stale")
             self.note.clear("the inputs have problems (see the marked fields)")
+            self.summary.show_stale([msg for _, msg in problems] + list(self.link_notes))
+            self._show_applicable_plots(None)
             self.patient.set_egfr_readout("<span class='ca-hint'>eGFR: waiting for valid inputs</span>")
             return None
         self.case = case
@@ -241,9 +290,52 @@ class ContrastAidApp(w.VBox):
         self.panel.show(decision, case.scheduled_at)
         self._show_egfr(decision)
         self._show_plots(decision, case)
-        self.note.show(protocol_note_markdown(decision, self.knowledge, case.scheduled_at),
-                       protocol_note_html(decision, self.knowledge, case.scheduled_at), self.query)
+        self.note.show(protocol_note_markdown(decision, self.knowledge, case.scheduled_at, case),
+                       protocol_note_html(decision, self.knowledge, case.scheduled_at, case), self.query,
+                       short_note(decision, self.knowledge, case))
+        self.summary.show(plan_summary(decision, case.scheduled_at), self.query)
+        compare = getattr(self, "_say_changes", False)
+        self.summary.show_changes(decision_changes(self._last_decision, decision) if compare else None)
+        self._last_decision = decision
         return decision
+
+    @staticmethod
+    def _unit_problems(data: dict) -> list[tuple[str, str]]:
+        """A creatinine outside the equations' range in the unit chosen (e.g. 99 mg/dL) is a problem even
+        when no eGFR is worked out: it is most often the other unit."""
+        cr = (data.get("patient") or {}).get("creatinine")
+        if isinstance(cr, dict) and isinstance(cr.get("value"), float):
+            msg = creatinine_message(cr["value"], str(cr.get("unit")))
+            if msg:
+                return [("patient.creatinine", msg)]
+        return []
+
+    @staticmethod
+    def _in_form_words(field: str, message: str, data: dict) -> str:
+        """The message with the form's label; a creatinine out of range that fits the other unit says so."""
+        cr = (data.get("patient") or {}).get("creatinine")
+        if field.startswith("patient.creatinine") and isinstance(cr, dict) and isinstance(cr.get("value"), float):
+            hint = creatinine_message(cr["value"], str(cr.get("unit")))
+            if hint:
+                return hint
+        return field_message(field, message)
+
+    def _show_applicable_plots(self, d: m.Decision | None) -> None:
+        """Only the plots that apply: the kidney plots for an exam with renal exposure, the timeline when
+        there is a timed action, the dose plot when there is a dose plan."""
+        exam = self.knowledge.exams.get(d.exam) if d is not None else None
+        renal = exam is not None and any(r.route in m.INTRAVASCULAR for r in exam.roles)
+        timed = d is not None and (d.premedication.indicated or d.metformin.hold or d.renal.hydration_indicated)
+        dose = d is not None and any(getattr(r, "dose", None) is not None or getattr(r, "agent_dose", None)
+                                     is not None for r in d.roles)
+        show = {"egfr": renal, "whatif": renal, "timeline": timed, "dose": dose}
+        for name, box in self.plot_boxes.items():
+            display = None if show[name] else "none"
+            if box.layout.display != display:
+                box.layout.display = display
+        display = None if any(show.values()) else "none"
+        if self.plots_box.layout.display != display:
+            self.plots_box.layout.display = display
 
     def _update_whatif(self, case: m.Case) -> None:
         # the sweep replaces kidney function, so it only depends on the rest of the case
@@ -261,16 +353,26 @@ class ContrastAidApp(w.VBox):
             cat = f"KDIGO <b>{r.category}</b>" if r.category else "no CKD category (acute kidney injury)"
             text = (f"eGFR <b>{r.egfr:g}</b> mL/min/1.73 m² · {cat} · "
                     f"{html.escape(r.note or '')}")
+        if r.creatinine_age_days is not None:
+            age = html.escape(human_ago(r.creatinine_age_days))
+            if r.creatinine_stale:
+                text += (f"<div class='ca-stale-lab'><b>Creatinine too old:</b> taken {age} at the exam time; this "
+                         f"patient needs one from the last {r.creatinine_max_age_days:g} days (policy). "
+                         "Repeat it before relying on this eGFR.</div>")
+            else:
+                text += f" · creatinine taken {age} at the exam time"
         self.patient.set_egfr_readout(text)
 
     def _redraw(self, name: str, out: w.Output, key: Any, make) -> None:
-        if self._plot_keys.get(name) == key:
+        # a hidden plot is not drawn (plotly would size it without a container); it is when it shows
+        if self._plot_keys.get(name) == key or self.plot_boxes[name].layout.display == "none":
             return
         fig, text = make()
         plots.show_figure(out, fig, text)
         self._plot_keys[name] = key
 
     def _show_plots(self, d: m.Decision, case: m.Case) -> None:
+        self._show_applicable_plots(d)
         if not self._plots_ready:
             return
         k = self.knowledge
@@ -293,7 +395,7 @@ class ContrastAidApp(w.VBox):
         items = timeline(d, k, case.scheduled_at)
         self._redraw("timeline", self.timeline_out, (tuple(items), case.scheduled_at),
                      lambda: plots.timeline_figure(items, case.scheduled_at))
-        doses = tuple(repr(getattr(role, "dose", None)) for role in d.roles)
+        doses = tuple(repr((getattr(role, "dose", None), getattr(role, "agent_dose", None))) for role in d.roles)
         self._redraw("dose", self.dose_out, (d.exam, doses), lambda: plots.dose_figure(d, k))
 
     # ---- for tests and notebooks

@@ -15,6 +15,7 @@ import ipywidgets as w
 from knowledge.tables import models as m
 from knowledge.tables.loader import Knowledge
 from knowledge.present.report import ROUTE_WORDS, agent_kind, dose_lines, regimen_line, timed_lines
+from knowledge.present.summary import Summary, clinical_verdict, protocol_order_words, split_options
 
 from .style import VERDICT_MARK, verdict_badge
 
@@ -31,7 +32,11 @@ def _reasons(opt: m.Option) -> str:
     return "<div><b>Why</b><ul>" + "".join(items) + "</ul></div>"
 
 
-def card_html(opt: m.Option, agent: m.Agent, ruled_out: bool) -> str:
+def card_html(opt: m.Option, agent: m.Agent, ruled_out: bool, verdict: m.Verdict | None = None) -> str:
+    """One agent card. ``verdict`` overrides the option's (the clinical verdict of an agent that is only
+    possible by the route)."""
+    if verdict is not None and verdict is not opt.verdict:
+        opt = opt.model_copy(update={"verdict": verdict})
     chosen = " ca-chosen" if opt.chosen else ""
     planned = " · <b>planned</b>" if opt.chosen else ""
     actions = ("<div><b>Do</b><ul>" + "".join(f"<li>{e(a)}</li>" for a in opt.actions) + "</ul></div>"
@@ -42,7 +47,7 @@ def card_html(opt: m.Option, agent: m.Agent, ruled_out: bool) -> str:
                 f"<details><summary><b>{e(opt.name)}</b> {verdict_badge(opt.verdict)} "
                 f"<span class='ca-meta'>{e(agent_kind(agent))} · why</span></summary>{body}</details></div>")
     head = (f"<div><b>{e(opt.name)}</b> {verdict_badge(opt.verdict)}</div>"
-            f"<div class='ca-meta'>{e(agent_kind(agent))} · rank {opt.rank}{planned}</div>")
+            f"<div class='ca-meta'>{e(agent_kind(agent))} · {protocol_order_words(opt)}{planned}</div>")
     if not opt.chosen and opt.reasons:  # the planned agent shows its reasons; the alternatives fold them
         n = len(opt.reasons)
         body = f"<details><summary>why and what to do ({n} rule{'s' if n > 1 else ''})</summary>{body}</details>"
@@ -112,7 +117,7 @@ class DecisionPanel(w.VBox):
         if stale:
             self.body.add_class("ca-stale")
             lines = "".join(f"<li>{e(x)}</li>" for x in (messages or []))
-            self.banner.value = ("<b>Not updated.</b> The plan below belongs to earlier inputs and is not valid "
+            self.banner.value = ("<b>Not updated.</b> The plan for the earlier inputs is hidden: it is not valid "
                                  f"for the values now entered. Correct these first:<ul>{lines}</ul>")
             self.banner.layout.display = None
         else:
@@ -130,7 +135,7 @@ class DecisionPanel(w.VBox):
         _set(self.alerts, alerts_html(d))
         notes = getattr(d, "exam_notes", "")
         urgency = getattr(d, "urgency", m.Urgency.elective)
-        self.summary.value = (f"<h3>{e(d.exam_name)}</h3><div>{e(need)}"
+        self.summary.value = (f"<h2>Decision: {e(d.exam_name)}</h2><div>{e(need)}"
                               + (f" Urgency: <b>{e(urgency.value)}</b>." if urgency is not m.Urgency.elective else "")
                               + "</div>"
                               + (f"<div class='ca-exam-notes'><b>Exam notes</b>: {e(notes)}</div>" if notes else ""))
@@ -140,18 +145,26 @@ class DecisionPanel(w.VBox):
                 self._sections.append(RoleSection())
             sec = self._sections[i]
             req = "" if role.required else " (optional)"
-            _set(sec.head, f"<h4>{e(role.route.value.replace('_', '-').capitalize())}{req}: {e(role.purpose)}</h4>")
-            usable, ruled = [], []
-            for opt in role.options:
+            _set(sec.head, f"<h3>{e(role.route.value.replace('_', '-').capitalize())}{req}: {e(role.purpose)}</h3>")
+            usable, ruled, other = [], [], []
+            usual_opts, other_opts = split_options(role)
+            for opt in usual_opts:
                 out = opt.verdict.severity >= m.Verdict.not_advised.severity
                 (ruled if out else usable).append(card_html(opt, k.agents[opt.agent], out))
-            sec.cards = usable + ruled
+            for opt in other_opts:  # only possible by the route: their clinical verdict, folded away
+                other.append(card_html(opt, k.agents[opt.agent], True, clinical_verdict(opt)))
+            sec.cards = usable + ruled + other
             none = "" if any(o.chosen for o in role.options) or not usable else \
                 "<div class='ca-hint'><b>No agent is planned for this role</b> (see the alert above).</div>"
             _set(sec.usable, none + "<div class='ca-cards'>" + "".join(usable) + "</div>" if usable else
                  "<div class='ca-hint'>No agent is usable for this role for this patient.</div>")
-            _set(sec.ruled, (f"<div class='ca-hint'>Ruled out here ({len(ruled)}); open one to see why.</div>"
-                             "<div class='ca-ruled-list'>" + "".join(ruled) + "</div>") if ruled else "")
+            ruled_html = (f"<div class='ca-hint'>Advised against here ({len(ruled)}); open one to see why.</div>"
+                          "<div class='ca-ruled-list'>" + "".join(ruled) + "</div>") if ruled else ""
+            other_html = (f"<details class='ca-other'><summary>Other agents possible by this route ({len(other)})"
+                          "</summary><div class='ca-hint'>Not agents this exam uses for this purpose; each shows its "
+                          "clinical verdict.</div><div class='ca-ruled-list'>" + "".join(other) + "</div></details>"
+                          ) if other else ""
+            _set(sec.ruled, ruled_html + other_html)
             sections.append(sec)
         if tuple(self.roles_box.children) != tuple(sections):
             self.roles_box.children = sections
@@ -181,3 +194,60 @@ class DecisionPanel(w.VBox):
         cautions = "".join(f"<li>{e(c)}</li>" for c in d.cautions)
         plan = f"<div><b>For the planned agents</b><ul>{''.join(parts)}</ul></div>" if parts else ""
         return plan + f"<div><b>Cautions</b><ul>{cautions}</ul></div>"
+
+
+class SummaryPanel(w.VBox):
+    """The plan at a glance (class ``ca-summary``): what to give and do, the alerts, what changed since the
+    last input (``ca-changes``) and two copy buttons (``ca-copy-summary``, ``ca-copy-link``). The buttons
+    carry the text they copy in ``data-ca-copy``; the page template's script puts it on the clipboard."""
+
+    def __init__(self, **kwargs: Any):
+        super().__init__(**kwargs)
+        self.add_class("ca-summary-box")
+        self.body = w.HTML("")
+        self.body.add_class("ca-summary")
+        self.changes = w.HTML("")
+        self.changes.add_class("ca-changes-box")
+        self.changes.add_class("ca-live")
+        self.buttons = w.HTML("")
+        self.buttons.add_class("ca-copy")
+        self.children = [self.body, self.changes, self.buttons]
+        self.text = ""
+        self.link = ""
+
+    def show(self, summary: Summary, query: str) -> None:
+        self.text = summary.text()
+        first = "".join(f"<p class='ca-first'><b>{e(x)}</b></p>" for x in summary.first)
+        agents = "".join(f"<li>{e(x)}</li>" for x in summary.agents)
+        alerts = "".join(f"<li class='ca-plan-alert ca-plan-alert-{e(lv)}'><b>{'Stop' if lv == 'stop' else 'Warning'}:</b> "
+                         f"{e(t)}</li>" for lv, t in summary.alerts)
+        actions = "".join(f"<li>{e(x)}</li>" for x in summary.actions)
+        html_text = (f"<h2>Plan: {e(summary.exam)}</h2>{first}<ul class='ca-plan-agents'>{agents}</ul>"
+                     + (f"<ul class='ca-plan-alerts'>{alerts}</ul>" if alerts else "")
+                     + (f"<ul class='ca-plan-actions'>{actions}</ul>" if actions else "")
+                     + (f"<div class='ca-hint'>{e(summary.as_of)}</div>" if summary.as_of else ""))
+        _set(self.body, html_text)
+        self.link = "?" + query
+        _set(self.buttons,
+             f'<button type="button" class="ca-copy-summary ca-button" data-ca-copy="{e(self.text)}">'
+             "Copy plan summary</button> "
+             f'<button type="button" class="ca-copy-link ca-button" data-ca-copy-link="{e(query)}">'
+             "Copy link to this case</button> <span class='ca-copied' aria-live='polite'></span>")
+
+    def show_changes(self, changes: list[str] | None) -> None:
+        """``None``: first view, nothing to compare; [] : the input changed, the plan did not."""
+        if changes is None:
+            _set(self.changes, "")
+        elif not changes:
+            _set(self.changes, "<div class='ca-changes'><b>What changed:</b> nothing in the plan.</div>")
+        else:
+            items = "".join(f"<li>{e(x)}</li>" for x in changes[:8])
+            more = f"<li>… and {len(changes) - 8} more</li>" if len(changes) > 8 else ""
+            _set(self.changes, f"<div class='ca-changes'><b>What changed</b><ul>{items}{more}</ul></div>")
+
+    def show_stale(self, messages: list[str]) -> None:
+        items = "".join(f"<li>{e(x)}</li>" for x in messages)
+        _set(self.body, f"<h2>Plan: not available</h2><p><b>Correct the inputs first:</b></p><ul>{items}</ul>")
+        _set(self.changes, "")
+        _set(self.buttons, "")
+        self.text = ""

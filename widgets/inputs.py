@@ -13,7 +13,7 @@ import ipywidgets as w
 import traitlets
 
 from knowledge.tables import models as m
-from knowledge.present.form import NUMBERS, creatinine_hint, hint
+from knowledge.present.form import GROUP_TITLES, FieldSpec, case_specs, creatinine_hint, label_of, patient_specs
 from knowledge.tables.loader import Knowledge
 
 MODALITY_LABEL = {m.Modality.fluoroscopy: "Fluoro", m.Modality.angiography: "Angio", m.Modality.ct: "CT",
@@ -22,6 +22,38 @@ MODALITY_ORDER = {m.Modality.fluoroscopy: 0, m.Modality.angiography: 1, m.Modali
                   m.Modality.mri: 3, m.Modality.ultrasound: 4}
 _WIDE = w.Layout(width="230px")
 _DESC = {"description_width": "initial"}
+
+
+def _sr(widget: w.Widget) -> w.Widget:
+    """Keep the widget's description as its accessible name but show it to screen readers only."""
+    widget.add_class("ca-sr-label")
+    return widget
+
+
+def _mark_invalid(widget: w.Widget, bad: bool) -> None:
+    """Class ca-invalid (the page sets aria-invalid on its inputs)."""
+    if bad and "ca-invalid" not in widget._dom_classes:
+        widget.add_class("ca-invalid")
+    elif not bad and "ca-invalid" in widget._dom_classes:
+        widget.remove_class("ca-invalid")
+
+
+def spec_control(spec: FieldSpec, width: str = "230px") -> w.ValueWidget:
+    """A control for a model field the form has no dedicated control for: bool -> checkbox, choice ->
+    dropdown, number -> text box with the unit and range as placeholder, list of choices -> multi-select."""
+    if spec.kind == "bool":
+        return w.Checkbox(description=spec.label, indent=False, layout=w.Layout(width="auto"))
+    if spec.kind == "choice":
+        options = ([("not given", "")] if spec.optional and spec.default is None else []) + list(spec.choices)
+        box = w.Dropdown(description=spec.label, options=options, style=_DESC, layout=w.Layout(width="300px"))
+        default = getattr(spec.default, "value", spec.default)
+        if default is not None and default in [v for _, v in options]:
+            box.value = default
+        return box
+    if spec.kind == "list" and spec.choices:
+        return w.SelectMultiple(description=spec.label, options=list(spec.choices), rows=min(4, len(spec.choices)),
+                                style=_DESC, layout=w.Layout(width="300px"))
+    return w.Text(description=spec.label, placeholder=spec.hint(), style=_DESC, layout=w.Layout(width=width))
 
 
 def _error_label() -> w.HTML:
@@ -41,20 +73,126 @@ def _set_error(label: w.HTML, messages: list[str]) -> None:
         label.layout.display = display
 
 
+def _control_value(spec: FieldSpec, control: w.ValueWidget) -> Any:
+    """The raw case value of a generic control (None when empty or at its default)."""
+    v = control.value
+    if spec.kind == "bool":
+        return True if v else None
+    if spec.kind == "list":
+        return list(v) or None
+    if isinstance(v, str):
+        v = v.strip()
+        default = getattr(spec.default, "value", spec.default)
+        return None if v == "" or (spec.kind == "choice" and v == default) else v
+    return v
+
+
+def _set_control(spec: FieldSpec, control: w.ValueWidget, value: Any, notes: list[str]) -> None:
+    """Put a value from a link into a generic control; a value it cannot hold becomes a note."""
+    label = label_of(spec.path)
+    if spec.kind == "bool":
+        if isinstance(value, bool):
+            control.value = value
+        else:
+            notes.append(f"{spec.path}: {value!r} from the link is not allowed; allowed: 1 or 0")
+    elif spec.kind == "choice":
+        allowed = [v for _, v in control.options]
+        if str(value) in allowed:
+            control.value = str(value)
+        else:
+            notes.append(f"{spec.path}: {value!r} from the link is not allowed ({label}); allowed: "
+                         + ", ".join(repr(a) for a in allowed if a))
+    elif spec.kind == "list":
+        allowed = [v for _, v in control.options]
+        items = [str(x) for x in (value if isinstance(value, list) else [value])]
+        control.value = tuple(x for x in items if x in allowed)
+        notes += [f"{spec.path}: {x!r} from the link is not allowed; allowed: " + ", ".join(allowed)
+                  for x in items if x not in allowed]
+    else:
+        control.value = str(value)
+
+
+class _CaseModelBase(traitlets.HasTraits):
+    """The case as typed: one trait per Case field and per Patient field (flat: the two sets of names do
+    not overlap). Numbers and times are the text as typed (the form's ``typed_case`` reads them), flags are
+    Bool, choices Unicode, nested models Dict and lists List. The panels write it on every control change;
+    the app observes it (and nothing else) to recompute."""
+
+    case_names: tuple[str, ...] = ()
+    patient_names: tuple[str, ...] = ()
+
+    def empty(self, name: str) -> Any:
+        return self.trait_defaults(name)
+
+    def case_data(self) -> dict[str, Any]:
+        """The case dict (empty and default values left out), as ``parse_case`` takes it after ``typed_case``."""
+
+        def keep(name: str) -> bool:
+            v = getattr(self, name)
+            return v not in (None, "", False, {}, []) and v != self.empty(name)
+
+        out: dict[str, Any] = {n: getattr(self, n) for n in self.case_names if keep(n)}
+        out.setdefault("exam", self.exam or "")
+        out["patient"] = {n: getattr(self, n) for n in self.patient_names if keep(n)}
+        return out
+
+
+def _trait_for(spec: FieldSpec) -> traitlets.TraitType:
+    if spec.kind == "bool":
+        return traitlets.Bool(False, help=spec.label)
+    if spec.kind == "model":
+        return traitlets.Dict(help=spec.label)
+    if spec.kind == "list":
+        return traitlets.List(help=spec.label)
+    default = getattr(spec.default, "value", spec.default)
+    return traitlets.Unicode("" if spec.kind != "choice" or default is None else str(default), allow_none=True,
+                             help=spec.label)
+
+
+def _case_model_class() -> type[_CaseModelBase]:
+    traits: dict[str, Any] = {}
+    case_names, patient_names = [], []
+    for sp in case_specs():
+        if sp.name == "patient":
+            for c in sp.children:
+                traits[c.name] = _trait_for(c)
+                patient_names.append(c.name)
+        else:
+            traits[sp.name] = _trait_for(sp)
+            case_names.append(sp.name)
+    traits.update(case_names=tuple(case_names), patient_names=tuple(patient_names),
+                  __doc__=_CaseModelBase.__doc__)
+    return type("CaseModel", (_CaseModelBase,), traits)
+
+
+#: the traitlets model of the case, generated from knowledge.tables.models.Case and Patient
+CaseModel = _case_model_class()
+
+
+def _push(model: _CaseModelBase, names: tuple[str, ...], data: dict[str, Any]) -> None:
+    """Write ``data`` into the model's traits ``names`` (missing ones back to empty), notifying once each."""
+    with model.hold_trait_notifications():
+        for name in names:
+            value = data.get(name, model.empty(name))
+            if getattr(model, name) != value:
+                setattr(model, name, value)
+
+
 class ExamPicker(w.VBox):
     """A filter box and a list of exams grouped by modality, with the purpose of the one picked."""
 
     exam_id = traitlets.Unicode("")
-    revision = traitlets.Int(0)
 
-    def __init__(self, knowledge: Knowledge, clock, **kwargs: Any):
+    def __init__(self, knowledge: Knowledge, clock, model: _CaseModelBase | None = None, **kwargs: Any):
         super().__init__(**kwargs)
         self._knowledge = knowledge
+        self.model = model if model is not None else CaseModel()
         self._all = sorted(knowledge.exams.values(), key=lambda e: (MODALITY_ORDER[e.modality], e.name.lower()))
         self.filter = w.Text(placeholder="filter: name, region, purpose or modality", description="Find exam",
                              style=_DESC, layout=w.Layout(width="100%"))
         self.filter.add_class("ca-exam-filter")
-        self.select = w.Select(options=self._options(self._all), rows=9, layout=w.Layout(width="100%"))
+        self.select = _sr(w.Select(options=self._options(self._all), rows=9, description="Exam",
+                                   style=_DESC, layout=w.Layout(width="100%")))
         self.select.add_class("ca-exam")
         self.purpose = w.HTML("")
         self.purpose.add_class("ca-exam-purpose")
@@ -80,11 +218,21 @@ class ExamPicker(w.VBox):
             description="Override: plan the requested agent even though it caused an earlier reaction",
             indent=False, layout=w.Layout(width="auto"))
         self.override_culprit.add_class("ca-override-culprit")
-        head = w.HTML('<div class="ca-group-head">Exam</div>')
+        head = w.HTML('<h3 class="ca-group-head">Exam</h3>')
+        # case fields with no dedicated control above (planned flow, volume, strength, and any new one)
+        own = {"exam", "agent", "scheduled_at", "as_of", "patient", "urgency", "override_culprit"}
+        self.extra_specs = [sp for sp in case_specs() if sp.name not in own]
+        self.extras: dict[str, w.ValueWidget] = {sp.name: spec_control(sp) for sp in self.extra_specs}
+        self.extra_errors = {name: _error_label() for name in self.extras}
+        extras = w.Accordion(children=[w.VBox([x for n, c in self.extras.items() for x in (c, self.extra_errors[n])])],
+                             selected_index=None)
+        extras.set_title(0, "Planned injection (optional overrides)")
         self.children = [head, self.filter, self.select, self.purpose, self.agent, self.override_culprit,
                          self.urgency, self.scheduled,
                          self.scheduled_error, w.HBox([self.as_of, self.as_of_now]), self.as_of_source,
-                         self.as_of_error, self.error]
+                         self.as_of_error, self.error, extras]
+        for c in self.extras.values():
+            c.observe(self._on_agent, "value")
         self.filter.observe(self._on_filter, "value")
         self.select.observe(self._on_select, "value")
         self.agent.observe(self._on_agent, "value")
@@ -149,15 +297,20 @@ class ExamPicker(w.VBox):
         self.agent.options = [("top-ranked option", "")] + agents
         self.agent.value = keep
         self.exam_id = exam.id
-        self.revision += 1
+        self.push()
+
+    def push(self) -> None:
+        """Write this panel's part of the case into the model."""
+        if getattr(self, "_clock", None) is not None:  # not while the controls are being built
+            _push(self.model, self.model.case_names, self.case_part())
 
     def _on_agent(self, change: dict) -> None:
-        self.revision += 1
+        self.push()
 
     def _on_as_of(self, change: dict) -> None:
         if not self._setting_as_of:
             self.as_of_source.value = "<span class='ca-hint'>'now' as typed here</span>"
-        self.revision += 1
+        self.push()
 
     _setting_as_of = False
 
@@ -177,6 +330,12 @@ class ExamPicker(w.VBox):
         _set_error(self.scheduled_error, problems.get("scheduled_at", []))
         _set_error(self.as_of_error, problems.get("as_of", []))
         _set_error(self.error, problems.get("exam", []) + problems.get("agent", []))
+        _mark_invalid(self.scheduled, bool(problems.get("scheduled_at")))
+        _mark_invalid(self.as_of, bool(problems.get("as_of")))
+        _mark_invalid(self.select, bool(problems.get("exam")))
+        for name, label in self.extra_errors.items():
+            _set_error(label, problems.get(name, []))
+            _mark_invalid(self.extras[name], bool(problems.get(name)))
 
     def case_part(self) -> dict[str, Any]:
         out: dict[str, Any] = {"exam": self.select.value or ""}
@@ -192,7 +351,27 @@ class ExamPicker(w.VBox):
         now = self.as_of.value.strip()
         if now:
             out["as_of"] = now.replace(" ", "T", 1) if len(now) > 10 else now
+        for sp in self.extra_specs:
+            value = _control_value(sp, self.extras[sp.name])
+            if value is not None:
+                out[sp.name] = value
         return out
+
+    def clear(self) -> None:
+        """Requested agent, exam time and overrides back to empty (the exam and 'as of' stay)."""
+        self.agent.value = ""
+        self.scheduled.value = ""
+        self.urgency.value = m.Urgency.elective.value
+        self.override_culprit.value = False
+        for sp in self.extra_specs:
+            self.extras[sp.name].value = spec_control(sp).value
+
+    def set_extras(self, data: dict[str, Any]) -> list[str]:
+        notes: list[str] = []
+        for sp in self.extra_specs:
+            if sp.name in data:
+                _set_control(sp, self.extras[sp.name], data[sp.name], notes)
+        return notes
 
     def set_exam(self, exam_id: str) -> str | None:
         """Pick an exam by id; returns a message if it is not in the table."""
@@ -211,13 +390,20 @@ class ReactionRow(w.HBox):
         super().__init__(**kwargs)
         self._knowledge = knowledge
         small = lambda px: w.Layout(width=px)  # noqa: E731
-        self.family = w.Dropdown(options=[(f.value, f.value) for f in m.Family], value="iodinated",
+        self.add_class("ca-reaction-row")
+        self.family = w.Dropdown(description="Reaction: agent family", options=[(f.value, f.value) for f in m.Family],
+                                 value="iodinated",
                                  layout=small("95px"))
-        self.kind = w.Dropdown(options=[("allergic-like", "allergic_like"), ("physiologic", "physiologic"),
+        self.kind = w.Dropdown(description="Reaction: kind",
+                               options=[("allergic-like", "allergic_like"), ("physiologic", "physiologic"),
                                         ("delayed (skin, hours-days)", "delayed")],
                                layout=small("110px"))
-        self.severity = w.Dropdown(options=["mild", "moderate", "severe"], layout=small("90px"))
-        self.agent = w.Dropdown(options=self._agents("iodinated"), layout=small("120px"))
+        self.severity = w.Dropdown(description="Reaction: severity", options=["mild", "moderate", "severe"],
+                                   layout=small("90px"))
+        self.agent = w.Dropdown(description="Reaction: culprit agent", options=self._agents("iodinated"),
+                                layout=small("120px"))
+        for c in (self.family, self.kind, self.severity, self.agent):
+            _sr(c)
         self.remove = w.Button(description="remove", tooltip="remove this reaction", layout=small("70px"))
         self.breakthrough = w.Checkbox(description="despite premedication", indent=False, layout=small("170px"))
         self.children = [self.family, self.kind, self.severity, self.agent, self.breakthrough, self.remove]
@@ -246,9 +432,9 @@ class ReactionRow(w.HBox):
 
 
 class ReactionEditor(w.VBox):
-    """Several prior contrast reactions; rows are added and removed."""
+    """Several prior contrast reactions; rows are added and removed. ``rows_data`` mirrors the rows."""
 
-    revision = traitlets.Int(0)
+    rows_data = traitlets.List()
 
     def __init__(self, knowledge: Knowledge, **kwargs: Any):
         super().__init__(**kwargs)
@@ -274,7 +460,7 @@ class ReactionEditor(w.VBox):
         self.rows.append(row)
         self._layout_rows()
         if notify:
-            self.revision += 1
+            self.rows_data = self.data()
         return row
 
     def clear(self) -> None:
@@ -284,78 +470,57 @@ class ReactionEditor(w.VBox):
     def _on_remove(self, row: ReactionRow) -> None:
         self.rows = [r for r in self.rows if r is not row]
         self._layout_rows()
-        self.revision += 1
+        self.rows_data = self.data()
 
     def _on_row_change(self) -> None:
-        self.revision += 1
+        self.rows_data = self.data()
 
     def data(self) -> list[dict[str, Any]]:
         return [r.data() for r in self.rows]
 
 
+#: the patient fields by group, from the models and the one group table (knowledge/present/form.py)
+SPECS: dict[str, list[FieldSpec]] = patient_specs()
 #: the boolean patient factors, by group (Patient field names)
-GROUP_FLAGS = {
-    "kidney": ["acute_kidney_injury", "kidney_disease_history", "diabetes"],
-    "gut": ["perforation_suspected", "aspiration_risk", "tracheoesophageal_fistula_suspected",
-            "colitis_or_diverticulitis", "toxic_megacolon", "recent_deep_biopsy", "bowel_fistula_suspected",
-            "obstruction_high_grade"],
-    "other": ["takes_metformin", "hyperthyroidism", "radioiodine_planned", "pregnant", "breastfeeding",
-              "shellfish_or_iodine_allergy", "heart_failure", "myasthenia_gravis", "inpatient",
-              "manifest_hyperthyroidism", "pheochromocytoma",
-              "peg_allergy", "unstable_cardiopulmonary"],  # the last two: MRI and ultrasound (issue 13)
+GROUP_FLAGS = {g: [sp.name for sp in specs if sp.kind == "bool"] for g, specs in SPECS.items()}
+FLAG_LABEL = {sp.name: sp.label for specs in SPECS.values() for sp in specs if sp.kind == "bool"}
+#: numeric patient fields (text boxes: the value as typed, parsed by the form's typed_case)
+NUMBERS = [sp.name for specs in SPECS.values() for sp in specs if sp.kind in ("number", "integer")]
+_SPEC = {sp.name: sp for specs in SPECS.values() for sp in specs}
+#: patient fields with a control of their own below; every other field gets a generic one (spec_control)
+DEDICATED = {"creatinine", "sex", "dialysis", "obstruction", "iv_access", "prior_reactions"}
+IV_SITES = [v for _, v in _SPEC["iv_access"].children[1].choices]
+GROUP_HINTS = {
+    "egfr": "An entered eGFR is used instead of the creatinine estimate.",
+    "height_cm": "Height is used for the children's eGFR (bedside Schwartz).",
 }
-FLAG_LABEL = {
-    "acute_kidney_injury": "Acute kidney injury now",
-    "kidney_disease_history": "Kidney disease, kidney surgery or a single kidney",
-    "diabetes": "Diabetes",
-    "perforation_suspected": "Perforation or leak suspected",
-    "aspiration_risk": "Swallowing difficulty or aspiration risk",
-    "tracheoesophageal_fistula_suspected": "Tracheo-oesophageal fistula suspected",
-    "takes_metformin": "Takes metformin",
-    "hyperthyroidism": "Nodular goitre, latent hyperthyroidism or latent Graves' disease",
-    "radioiodine_planned": "Radioiodine therapy or scan planned",
-    "pregnant": "Pregnant",
-    "breastfeeding": "Breastfeeding",
-    "shellfish_or_iodine_allergy": "Reports seafood or povidone-iodine allergy",
-    "heart_failure": "Heart failure that limits IV fluids",
-    "myasthenia_gravis": "Myasthenia gravis",
-    "inpatient": "Inpatient or acutely ill",
-    "colitis_or_diverticulitis": "Acute colitis or diverticulitis",
-    "toxic_megacolon": "Toxic megacolon",
-    "recent_deep_biopsy": "Deep biopsy, polypectomy or colonic surgery in the last days",
-    "bowel_fistula_suspected": "Bowel fistula suspected",
-    "obstruction_high_grade": "Obstruction is high-grade",
-    "manifest_hyperthyroidism": "Manifest (overt) hyperthyroidism now",
-    "pheochromocytoma": "Pheochromocytoma or paraganglioma",
-    "peg_allergy": "Polyethylene glycol (PEG) hypersensitivity",
-    "unstable_cardiopulmonary": "Pulmonary hypertension or unstable cardiopulmonary condition",
-}
-IV_SITES = ["antecubital", "forearm", "hand_or_wrist", "central_power_injectable", "central_not_power_rated"]
 
 
 class PatientPanel(w.VBox):
-    """Patient factors in groups: kidney; gut and swallowing; reaction history; other conditions; size and IV.
+    """Patient factors in groups (``GROUPS`` in knowledge/present/form.py), one control per Patient field.
 
     Controls are attributes named after the Patient fields (``age_years``, ``perforation_suspected``, ...)
     plus ``creatinine_value``, ``creatinine_unit``, ``creatinine_date``, ``iv_gauge``, ``iv_site`` and
-    ``reactions`` (a :class:`ReactionEditor`).
+    ``reactions`` (a :class:`ReactionEditor`). A field added to the model gets a generic control
+    (:func:`spec_control`) in its group without edits here.
     """
 
-    revision = traitlets.Int(0)
-
-    def __init__(self, knowledge: Knowledge, **kwargs: Any):
+    def __init__(self, knowledge: Knowledge, model: _CaseModelBase | None = None, **kwargs: Any):
         super().__init__(**kwargs)
         self._knowledge = knowledge
+        self.model = model if model is not None else CaseModel()
         self._holding = False
         self.errors: dict[str, w.HTML] = {}
+        self.generic: dict[str, w.ValueWidget] = {}
 
         def number(name: str) -> w.VBox:
-            label, unit = NUMBERS[name]
-            box = w.Text(description=label, placeholder=hint(name), style=_DESC, layout=_WIDE,
+            sp = _SPEC[name]
+            box = w.Text(description=sp.label, placeholder=sp.hint(), style=_DESC, layout=_WIDE,
                          continuous_update=True)
             setattr(self, name, box)
             err = self.errors[name] = _error_label()
-            return w.VBox([w.HBox([box, w.HTML(f"<span class='ca-hint'>{hint(name)}</span>")]), err])
+            return w.VBox([w.HBox([box, w.HTML(f"<span class='ca-hint'>{sp.hint()}</span>")],
+                                  layout=w.Layout(flex_flow="row wrap")), err])
 
         def flag(name: str) -> w.Checkbox:
             box = w.Checkbox(description=FLAG_LABEL[name], indent=False, layout=w.Layout(width="auto"))
@@ -363,13 +528,14 @@ class PatientPanel(w.VBox):
             return box
 
         def head(text: str) -> w.HTML:
-            return w.HTML(f'<div class="ca-group-head">{text}</div>')
+            return w.HTML(f'<h3 class="ca-group-head">{text}</h3>')
 
-        # kidney
+        # dedicated controls
         self.creatinine_value = w.Text(description="Creatinine", placeholder="serum creatinine", style=_DESC,
                                        layout=w.Layout(width="180px"))
-        self.creatinine_unit = w.Dropdown(options=[("mg/dL", "mg/dL"), ("µmol/L", "umol/L")],
-                                          layout=w.Layout(width="90px"))
+        self.creatinine_unit = _sr(w.Dropdown(description="Creatinine unit",
+                                              options=[("mg/dL", "mg/dL"), ("µmol/L", "umol/L")],
+                                              style=_DESC, layout=w.Layout(width="90px")))
         self.creatinine_hint = w.HTML(f"<span class='ca-hint'>{creatinine_hint('mg/dL')}</span>")
         self.creatinine_date = w.DatePicker(description="measured on", style=_DESC, value=None,
                                             layout=w.Layout(width="230px"))
@@ -377,53 +543,71 @@ class PatientPanel(w.VBox):
         self.sex = w.Dropdown(description="Sex", options=[("not given", ""), ("female", "female"), ("male", "male")],
                               style=_DESC, layout=w.Layout(width="180px"))
         self.errors["sex"] = _error_label()
-        self.dialysis = w.Dropdown(description="Dialysis", style=_DESC, layout=w.Layout(width="300px"),
-                                   options=[("none", "none"), ("dialysis, anuric", "dialysis_anuric"),
-                                            ("dialysis, residual function", "dialysis_residual_function")])
+        self.dialysis = spec_control(_SPEC["dialysis"])
+        self.obstruction = spec_control(_SPEC["obstruction"])
         self.egfr_readout = w.HTML("")
         self.egfr_readout.add_class("ca-egfr")
-        kidney = w.VBox([
-            head("Kidney"), number("age_years"), w.VBox([self.sex, self.errors["sex"]]),
-            w.HBox([self.creatinine_value, self.creatinine_unit, self.creatinine_hint]),
-            self.creatinine_date, self.errors["creatinine"], number("cystatin_c_mg_l"), number("egfr"),
-            w.HTML("<span class='ca-hint'>An entered eGFR is used instead of the creatinine estimate.</span>"),
-            flag("acute_kidney_injury"), flag("kidney_disease_history"), flag("diabetes"), self.dialysis,
-            self.egfr_readout])
-        # gut and swallowing
-        self.obstruction = w.Dropdown(description="Bowel obstruction", style=_DESC, layout=w.Layout(width="300px"),
-                                      options=[("none", "none"), ("small bowel", "small_bowel"),
-                                               ("large bowel", "large_bowel")])
-        gut = w.VBox([head("Gut and swallowing")] + [flag(n) for n in GROUP_FLAGS["gut"]] + [self.obstruction])
-        # reactions
+        self.egfr_readout.add_class("ca-live")
         self.reactions = ReactionEditor(knowledge)
-        history = w.VBox([head("Earlier contrast reactions"), self.reactions])
-        # other
-        other = w.VBox([head("Other conditions and medicines")] + [flag(n) for n in GROUP_FLAGS["other"]])
-        # size and access
         self.iv_gauge = w.Dropdown(description="IV catheter", style=_DESC, layout=w.Layout(width="170px"),
                                    options=[("none given", "")] + [(f"{g} G", str(g)) for g in range(14, 25)])
-        self.iv_site = w.Dropdown(options=[("site", "")] + [(s.replace("_", " "), s) for s in IV_SITES],
-                                  layout=w.Layout(width="190px"))
+        self.iv_site = _sr(w.Dropdown(description="IV catheter site", style=_DESC,
+                                      options=[("site", "")] + [(s.replace("_", " "), s) for s in IV_SITES],
+                                      layout=w.Layout(width="190px")))
         self.errors["iv_access"] = _error_label()
-        size = w.VBox([head("Size and IV access"), number("weight_kg"), number("height_cm"),
-                       w.HTML("<span class='ca-hint'>Height is used for the children's eGFR (bedside Schwartz).</span>"),
-                       w.HBox([self.iv_gauge, self.iv_site]), self.errors["iv_access"]])
+        dedicated = {
+            "sex": lambda: [w.VBox([self.sex, self.errors["sex"]])],
+            "creatinine": lambda: [w.HBox([self.creatinine_value, self.creatinine_unit, self.creatinine_hint],
+                                          layout=w.Layout(flex_flow="row wrap")),
+                                   self.creatinine_date, self.errors["creatinine"]],
+            "dialysis": lambda: [self.dialysis],
+            "obstruction": lambda: [self.obstruction],
+            "prior_reactions": lambda: [self.reactions],
+            "iv_access": lambda: [w.HBox([self.iv_gauge, self.iv_site], layout=w.Layout(flex_flow="row wrap")),
+                                  self.errors["iv_access"]],
+        }
+        groups = []
+        for group, specs in SPECS.items():
+            items: list[w.Widget] = [head(GROUP_TITLES[group])]
+            for sp in specs:
+                if sp.name in dedicated:
+                    items += dedicated[sp.name]()
+                elif sp.kind == "bool":
+                    items.append(flag(sp.name))
+                elif sp.kind in ("number", "integer"):
+                    items.append(number(sp.name))
+                else:  # a new choice or list field: a generic control
+                    ctl = self.generic[sp.name] = spec_control(sp)
+                    setattr(self, sp.name, ctl)
+                    self.errors[sp.name] = _error_label()
+                    items += [ctl, self.errors[sp.name]]
+                if sp.name in GROUP_HINTS:
+                    items.append(w.HTML(f"<span class='ca-hint'>{GROUP_HINTS[sp.name]}</span>"))
+            if group == "kidney":
+                items.append(self.egfr_readout)
+            groups.append(w.VBox(items))
         self.general_error = _error_label()
-        self.children = [kidney, gut, history, other, size, self.general_error]
+        self.children = groups + [self.general_error]
 
         self._controls = ([getattr(self, n) for n in NUMBERS]
                           + [getattr(self, n) for g in GROUP_FLAGS.values() for n in g]
                           + [self.creatinine_value, self.creatinine_unit, self.creatinine_date, self.sex,
-                             self.dialysis, self.obstruction, self.iv_gauge, self.iv_site])
+                             self.dialysis, self.obstruction, self.iv_gauge, self.iv_site]
+                          + list(self.generic.values()))
         for c in self._controls:
             c.observe(self._on_change, "value")
         self.creatinine_unit.observe(self._on_unit, "value")
-        self.reactions.observe(self._on_change, "revision")
+        self.reactions.observe(self._on_change, "rows_data")
+        self.push()
 
     # ---- events
     def _on_change(self, change: dict) -> None:
         if not self._holding:
-            self.revision += 1
+            self.push()
+
+    def push(self) -> None:
+        """Write the patient part of the case into the model."""
+        _push(self.model, self.model.patient_names, self.patient_data())
 
     def _on_unit(self, change: dict) -> None:
         self.creatinine_hint.value = f"<span class='ca-hint'>{creatinine_hint(change['new'])}</span>"
@@ -455,7 +639,34 @@ class PatientPanel(w.VBox):
         reactions = self.reactions.data()
         if reactions:
             p["prior_reactions"] = reactions
+        for name, ctl in self.generic.items():
+            value = _control_value(_SPEC[name], ctl)
+            if value is not None:
+                p[name] = value
         return p
+
+    def clear(self) -> None:
+        """Every control back to empty or its default (before a link is applied to a running page)."""
+        self._holding = True
+        try:
+            for name in NUMBERS:
+                getattr(self, name).value = ""
+            for names in GROUP_FLAGS.values():
+                for name in names:
+                    getattr(self, name).value = False
+            self.sex.value = ""
+            self.dialysis.value = "none"
+            self.obstruction.value = "none"
+            self.creatinine_value.value = ""
+            self.creatinine_unit.value = "mg/dL"
+            self.creatinine_date.value = None
+            self.iv_gauge.value = ""
+            self.iv_site.value = ""
+            self.reactions.clear()
+            for name, ctl in self.generic.items():
+                ctl.value = spec_control(_SPEC[name]).value
+        finally:
+            self._holding = False
 
     def set_patient(self, p: dict[str, Any]) -> list[str]:
         """Fill the form from a patient dict (e.g. from a link); returns messages for values it cannot hold."""
@@ -499,9 +710,13 @@ class PatientPanel(w.VBox):
                     self._choose(row.agent, str(r["agent"]), "patient.prior_reactions.agent", notes)
                 if r.get("despite_premedication") is True:
                     row.breakthrough.value = True
+            for name, ctl in self.generic.items():
+                if name in p:
+                    _set_control(_SPEC[name], ctl, p[name], notes)
         finally:
             self._holding = False
-        self.revision += 1
+        self.reactions.rows_data = self.reactions.data()
+        self.push()
         return notes
 
     @staticmethod
@@ -520,6 +735,12 @@ class PatientPanel(w.VBox):
             msgs = problems.get(key, [])
             used.add(key)
             _set_error(label, msgs)
+        controls = {"creatinine": [self.creatinine_value, self.creatinine_unit, self.creatinine_date],
+                    "iv_access": [self.iv_gauge, self.iv_site]}
+        for key in self.errors:
+            for ctl in controls.get(key, [getattr(self, key, None)]):
+                if isinstance(ctl, w.DOMWidget):
+                    _mark_invalid(ctl, bool(problems.get(key)))
         _set_error(self.reactions.error, problems.get("prior_reactions", []))
         used.add("prior_reactions")
         rest = [msg for key, msgs in problems.items() if key not in used for msg in msgs]

@@ -12,22 +12,29 @@ from knowledge.present.report import data_uri, knowledge_tables
 
 
 class ProtocolNote(w.VBox):
-    """A Markdown note to copy, download links (Markdown, HTML) and a link that reopens the case."""
+    """The short note to paste (plain text, at most 12 lines) with a copy button (``ca-copy-note``), the
+    full note as Markdown (folded) and downloads (Markdown, HTML) and a link that reopens the case."""
 
     def __init__(self, **kwargs: Any):
         super().__init__(**kwargs)
         self.add_class("ca-note")
-        self.text = w.Textarea(value="", layout=w.Layout(width="650px", height="260px"))
+        self.short = w.HTML("")
         self.links = w.HTML("")
         self.links.add_class("ca-downloads")
-        self.children = [w.HTML('<div class="ca-group-head">Protocol note (select all and copy, or download)</div>'),
-                         self.text, self.links]
+        self.children = [w.HTML('<h2 class="ca-section-head">Protocol note</h2>'), self.short, self.links]
         self.markdown = ""
         self.html = ""
+        self.text = ""
 
-    def show(self, markdown: str, html_doc: str, query: str) -> None:
-        self.markdown, self.html = markdown, html_doc
-        self.text.value = markdown
+    def show(self, markdown: str, html_doc: str, query: str, short: str = "") -> None:
+        self.markdown, self.html, self.text = markdown, html_doc, short
+        e = html.escape
+        self.short.value = (
+            f"<pre class='ca-short-note' aria-label='Short protocol note'>{e(short)}</pre>"
+            f'<button type="button" class="ca-copy-note ca-button" data-ca-copy="{e(short)}">Copy note</button> '
+            "<span class='ca-copied' aria-live='polite'></span>"
+            f"<details class='ca-full-note'><summary>Full note (Markdown, every source listed once)</summary>"
+            f"<pre>{e(markdown)}</pre></details>")
         self.links.value = (
             f'<a class="ca-download-md" download="protocol-note.md" href="{data_uri(markdown, "text/markdown")}">'
             "download Markdown</a> · "
@@ -36,8 +43,8 @@ class ProtocolNote(w.VBox):
             f'<a class="ca-case-link" href="?{html.escape(query)}">link to this case (no identifiers)</a>')
 
     def clear(self, reason: str) -> None:
-        self.markdown = self.html = ""
-        self.text.value = f"No note: {reason}"
+        self.markdown = self.html = self.text = ""
+        self.short.value = f"<p>No note: {html.escape(reason)}</p>"
         self.links.value = ""
 
 

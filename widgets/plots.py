@@ -32,15 +32,15 @@ CONFIG = {"displaylogo": False, "responsive": False,
 
 
 def plot_output() -> w.Output:
-    """An Output of fixed width (so a plot never covers the controls); its height follows the figure."""
-    return w.Output(layout=w.Layout(width=f"{WIDTH + 10}px", overflow="hidden"))
+    """An Output as wide as its column (plots resize with the page); its height follows the figure."""
+    return w.Output(layout=w.Layout(width="100%", max_width=f"{WIDTH + 10}px", overflow="hidden"))
 
 
 def show_figure(out: w.Output, fig: dict | None, text: str) -> None:
     """Replace what ``out`` shows by the figure dict ``fig`` (or by ``text`` alone when None)."""
     data: dict[str, Any] = {"text/plain": text}
     if fig is not None:
-        data[PLOTLY_MIME] = {"data": fig["data"], "layout": fig["layout"], "config": CONFIG}
+        data[PLOTLY_MIME] = {"data": fig["data"], "layout": fig["layout"], "config": {**CONFIG, **_FLUID}}
         out.layout.min_height = f"{fig['layout'].get('height', 100)}px"
     else:
         data["text/html"] = f"<div class='ca-hint'>{html.escape(text)}</div>"
@@ -48,8 +48,12 @@ def show_figure(out: w.Output, fig: dict | None, text: str) -> None:
     out.outputs = ({"output_type": "display_data", "data": data, "metadata": {}},)
 
 
+#: plots follow their column's width (a phone is narrower than WIDTH)
+_FLUID = {"responsive": True}
+
+
 def _base_layout(height: int, **kw: Any) -> dict[str, Any]:
-    return dict(width=WIDTH, height=height, margin=dict(l=90, r=20, t=30, b=40), showlegend=False,
+    return dict(autosize=True, height=height, margin=dict(l=90, r=20, t=30, b=58), showlegend=False,
                 plot_bgcolor="#ffffff", paper_bgcolor="#ffffff", font=dict(size=12), **kw)
 
 
@@ -90,9 +94,9 @@ def egfr_figure(knowledge: Knowledge) -> dict:
     data.append(dict(type="scatter", x=[], y=[], mode="markers+text", name="patient", textposition="middle right",
                      marker=dict(symbol="diamond", size=14, color="#000000", line=dict(color="#ffffff", width=2)),
                      cliponaxis=False, hoverinfo="text"))
-    layout = _base_layout(170, barmode="overlay")
-    layout["margin"] = dict(l=70, r=20, t=48, b=40)
-    layout.update(xaxis=dict(range=[0, EGFR_MAX], title=dict(text="eGFR, mL/min/1.73 m² (KDIGO 2012 G categories)")),
+    layout = _base_layout(188, barmode="overlay")
+    layout["margin"] = dict(l=70, r=20, t=48, b=58)
+    layout.update(xaxis=dict(range=[0, EGFR_MAX], title=dict(text="eGFR, mL/min/1.73 m²<br>(KDIGO 2012 G categories)")),
                   yaxis=dict(categoryorder="array", categoryarray=["patient", "bands"], tickfont=dict(size=11)),
                   shapes=shapes, annotations=notes, bargap=0.15)
     return dict(data=data, layout=layout)
@@ -144,9 +148,9 @@ def whatif_figure(whatif: WhatIf, egfr: float | None) -> tuple[dict | None, str]
                                     + (", hydration indicated" if s.hydration else "")]))
         descr.append(f"{s.low:g}–{s.high:g}: {s.agent_name} {words}" + (" (hydration)" if s.hydration else ""))
     route = whatif.route.value.replace("_", "-") if whatif.route else ""
-    fig = dict(data=data, layout=dict(**_base_layout(140, barmode="overlay"),
+    fig = dict(data=data, layout=dict(**_base_layout(158, barmode="overlay"),
                xaxis=dict(range=[whatif.segments[0].low, whatif.segments[-1].high],
-                          title=dict(text=f"if eGFR were … (planned {route} agent, all else as entered)")),
+                          title=dict(text=f"if eGFR were …<br>(planned {route} agent, all else as entered)")),
                yaxis=dict(showticklabels=False), shapes=[], annotations=[]))
     set_whatif_egfr(fig, whatif, egfr)
     return fig, "What-if over eGFR: " + "; ".join(descr)
@@ -201,9 +205,9 @@ def timeline_figure(items: list[TimelineItem], scheduled_at: dt.datetime | None)
                      tickformat="%a %H:%M")
     else:
         xaxis = dict(range=[lo, hi], zeroline=True,
-                     title=dict(text="hours from the contrast (enter an exam time for clock times)"))
+                     title=dict(text="hours from the contrast<br>(enter an exam time for clock times)"))
     rows = [r for r in ROWS if any(i.kind == r for i in items)]
-    fig = dict(data=data, layout=dict(**_base_layout(60 + 45 * len(rows), barmode="overlay"), xaxis=xaxis,
+    fig = dict(data=data, layout=dict(**_base_layout(78 + 45 * len(rows), barmode="overlay"), xaxis=xaxis,
                                       yaxis=dict(categoryorder="array", categoryarray=rows)))
     return fig, "Timeline: " + "; ".join(lines)
 
@@ -251,7 +255,7 @@ def dose_figure(decision: m.Decision, knowledge: Knowledge) -> tuple[dict | None
              + (f" at {flow:g} mL/s" if isinstance(flow, (int, float)) else "")
              + (f" = {idr:.2f} g I/s" if isinstance(idr, (int, float)) else ""))
     top = max([v for _, v in pairs] + [cap or 0]) * 1.25
-    layout = _base_layout(230)
+    layout = _base_layout(248)
     layout.update(title=dict(text=title, font=dict(size=12)), shapes=shapes, annotations=notes,
                   yaxis=dict(title=dict(text="volume for this iodine dose, mL"), range=[0, top]),
                   xaxis=dict(title=dict(text="strengths of the agent")))

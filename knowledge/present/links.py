@@ -2,11 +2,17 @@
 
 The dashboard is opened with a query such as
 ``exam=ct-abdomen-pelvis&creatinine=1.4&unit=mg/dL&age=60&sex=male`` and prefills the case from it.
-Only the clinical factors of :class:`knowledge.tables.models.Patient` travel; the case model has no field for a
-name, a record number or a date of birth, and unknown keys (for example those Voila adds) are ignored.
+The codec is generated from the case model (:func:`knowledge.present.form.case_specs`): every field of
+:class:`~knowledge.tables.models.Case` and :class:`~knowledge.tables.models.Patient` has a key, so a new
+model field travels in links without further edits. Keys are the field name unless :data:`LINK_KEYS` gives
+a short one; a nested model's fields are ``FIELD_SUB`` unless named there; a list of models is one
+repeatable key with its fields joined by ``:`` in model order (``reaction=FAMILY:KIND:SEVERITY[:AGENT]``);
+a list of choices is a repeatable key. Booleans are ``1``. The case model has no field for a name, a record
+number or a date of birth, and unknown keys (for example those Voila adds) are ignored.
 
-Values are passed on as given (strings); :func:`knowledge.decision.engine.parse_case` validates them and names
-the field of any bad value, so a link can never crash the dashboard.
+Values are passed on as given (strings); :func:`knowledge.decision.engine.parse_case` (after the form's
+:func:`~knowledge.present.form.typed_case`) validates them and names the field of any bad value, so a link
+can never crash the dashboard.
 """
 
 from __future__ import annotations
@@ -15,52 +21,57 @@ from typing import Any
 from urllib.parse import parse_qsl, urlencode
 
 from ..tables import models as m
+from .form import FieldSpec, case_specs
 
-#: short query key -> Patient field, for the scalar (number or choice) fields
-SCALARS: dict[str, str] = {
-    "age": "age_years",
-    "sex": "sex",
-    "weight": "weight_kg",
-    "height": "height_cm",
-    "cystatin": "cystatin_c_mg_l",
-    "egfr": "egfr",
-    "dialysis": "dialysis",
-    "obstruction": "obstruction",
+#: short keys of the links made so far (case path -> key); other fields use their own name
+LINK_KEYS: dict[str, str] = {
+    "scheduled_at": "at", "as_of": "asof",
+    "patient.age_years": "age", "patient.weight_kg": "weight", "patient.height_cm": "height",
+    "patient.cystatin_c_mg_l": "cystatin",
+    "patient.creatinine.value": "creatinine", "patient.creatinine.unit": "unit",
+    "patient.creatinine.measured_on": "measured",
+    "patient.acute_kidney_injury": "aki", "patient.perforation_suspected": "perforation",
+    "patient.aspiration_risk": "aspiration", "patient.tracheoesophageal_fistula_suspected": "te_fistula",
+    "patient.takes_metformin": "metformin", "patient.hyperthyroidism": "hyperthyroid",
+    "patient.radioiodine_planned": "radioiodine", "patient.shellfish_or_iodine_allergy": "seafood_allergy",
+    "patient.myasthenia_gravis": "myasthenia", "patient.kidney_disease_history": "kidney_disease",
+    "patient.iv_access.gauge": "iv_gauge", "patient.iv_access.site": "iv_site",
+    "patient.prior_reactions": "reaction",
+    "override_culprit": "override",
+    "patient.manifest_hyperthyroidism": "manifest_hyperthyroid", "patient.pheochromocytoma": "pheo",
+    "patient.colitis_or_diverticulitis": "colitis", "patient.toxic_megacolon": "megacolon",
+    "patient.recent_deep_biopsy": "deep_biopsy", "patient.bowel_fistula_suspected": "bowel_fistula",
+    "patient.obstruction_high_grade": "high_grade", "patient.unstable_cardiopulmonary": "cardiopulmonary",
 }
-
-#: short query key -> boolean Patient field
-FLAGS: dict[str, str] = {
-    "aki": "acute_kidney_injury",
-    "perforation": "perforation_suspected",
-    "aspiration": "aspiration_risk",
-    "te_fistula": "tracheoesophageal_fistula_suspected",
-    "metformin": "takes_metformin",
-    "hyperthyroid": "hyperthyroidism",
-    "radioiodine": "radioiodine_planned",
-    "pregnant": "pregnant",
-    "breastfeeding": "breastfeeding",
-    "seafood_allergy": "shellfish_or_iodine_allergy",
-    "heart_failure": "heart_failure",
-    "myasthenia": "myasthenia_gravis",
-    "inpatient": "inpatient",
-    "kidney_disease": "kidney_disease_history",
-    "diabetes": "diabetes",
-    "manifest_hyperthyroid": "manifest_hyperthyroidism",
-    "pheo": "pheochromocytoma",
-    "colitis": "colitis_or_diverticulitis",
-    "megacolon": "toxic_megacolon",
-    "deep_biopsy": "recent_deep_biopsy",
-    "bowel_fistula": "bowel_fistula_suspected",
-    "high_grade": "obstruction_high_grade",
-    "peg_allergy": "peg_allergy",  # issue 13
-    "cardiopulmonary": "unstable_cardiopulmonary",  # issue 13
-}
-
-#: the value of a reaction's fifth part that marks a breakthrough reaction (despite premedication)
-BREAKTHROUGH = "breakthrough"
-
+#: how a flag inside a repeated key is written (path -> word); other flags in a list item are written 1
+ITEM_FLAG_WORDS: dict[str, str] = {"patient.prior_reactions.despite_premedication": "breakthrough"}
+#: values written in other spellings in links (unit names), read back to the model's
+_ALIASES = {"umol/l": "umol/L", "µmol/l": "umol/L", "mg/dl": "mg/dL"}
 _TRUE = {"1", "true", "yes", "on", "y"}
 _FALSE = {"0", "false", "no", "off", "n", ""}
+
+
+def key_of(spec: FieldSpec) -> str:
+    """The query key of a field: LINK_KEYS, else the path below ``patient.`` with '_' for '.'."""
+    if spec.path in LINK_KEYS:
+        return LINK_KEYS[spec.path]
+    path = spec.path[len("patient."):] if spec.path.startswith("patient.") else spec.path
+    return path.replace(".", "_")
+
+
+def link_keys() -> dict[str, str]:
+    """Every leaf case path -> its query key (lists of models: the list's path)."""
+    out: dict[str, str] = {}
+
+    def walk(specs):
+        for s in specs:
+            if s.kind == "model":
+                walk(s.children)
+            else:
+                out[s.path] = key_of(s)
+
+    walk(case_specs())
+    return out
 
 
 def _flag(value: str) -> bool | str:
@@ -75,120 +86,126 @@ def _flag(value: str) -> bool | str:
 def case_from_query(query: str) -> dict[str, Any]:
     """A case dict (for ``parse_case``) from a URL query string; unknown keys are ignored.
 
-    Keys: ``exam``, ``agent``, ``at`` (the exam's date-time), ``asof`` (the "now" the link was made for),
-    ``creatinine`` with ``unit`` (``mg/dL``
-    default, or ``umol/L``) and ``measured`` (the sample's date),
-    the short keys of :data:`SCALARS` and :data:`FLAGS`, ``iv_gauge`` with ``iv_site``, and
-    ``reaction=FAMILY:KIND:SEVERITY[:AGENT[:breakthrough]]`` (repeatable) for prior reactions, ``urgency``
-    and ``override=1`` (the explicit culprit override).
-    """
-    pairs = parse_qsl((query or "").lstrip("?"), keep_blank_values=True)
-    case: dict[str, Any] = {}
-    patient: dict[str, Any] = {}
+    Keys: see the module docstring and :func:`link_keys` (``exam``, ``agent``, ``at``, ``asof``,
+    ``creatinine`` with ``unit`` (default ``mg/dL``) and ``measured``, ``age``, ``sex``, ..., ``iv_gauge``
+    with ``iv_site``, ``reaction=FAMILY:KIND:SEVERITY[:AGENT]`` (repeatable))."""
     values: dict[str, str] = {}
-    reactions: list[dict[str, Any]] = []
-    for key, value in pairs:
+    repeated: dict[str, list[str]] = {}
+    for key, value in parse_qsl((query or "").lstrip("?"), keep_blank_values=True):
         key = key.strip().lower()
-        if key == "reaction":
-            parts = [p.strip() for p in value.split(":")]
-            row: dict[str, Any] = {}
-            for name, part in zip(("agent_family", "kind", "severity", "agent"), parts):
-                if part:
-                    row[name] = part
-            if len(parts) > 4 and parts[4]:
-                row["despite_premedication"] = True if parts[4].lower() == BREAKTHROUGH else parts[4]
-            if row:
-                reactions.append(row)
-        else:
-            values[key] = value  # the last one wins, as in a form
-    if values.get("exam"):
-        case["exam"] = values["exam"].strip()
-    if values.get("agent"):
-        case["agent"] = values["agent"].strip()
-    if values.get("at", "").strip():  # the exam's date-time: not an identifier
-        case["scheduled_at"] = values["at"].strip()
-    if values.get("asof", "").strip():  # the "now" the link was made for
-        case["as_of"] = values["asof"].strip()
-    if values.get("urgency", "").strip():
-        case["urgency"] = values["urgency"].strip()
-    if "override" in values:
-        flag = _flag(values["override"])
-        if flag is not False:
-            case["override_culprit"] = flag
-    if values.get("creatinine", "").strip():
-        unit = values.get("unit", "mg/dL").strip() or "mg/dL"
-        unit = {"umol/l": "umol/L", "µmol/l": "umol/L", "mg/dl": "mg/dL"}.get(unit.lower(), unit)
-        patient["creatinine"] = {"value": values["creatinine"].strip(), "unit": unit}
-        if values.get("measured", "").strip():
-            patient["creatinine"]["measured_on"] = values["measured"].strip()
-    for key, field in SCALARS.items():
-        if values.get(key, "").strip():
-            patient[field] = values[key].strip()
-    for key, field in FLAGS.items():
-        if key in values:
-            flag = _flag(values[key])
-            if flag is not False:
-                patient[field] = flag
-    if values.get("iv_gauge", "").strip() or values.get("iv_site", "").strip():
-        patient["iv_access"] = {"gauge": values.get("iv_gauge", "").strip(), "site": values.get("iv_site", "").strip()}
-    if reactions:
-        patient["prior_reactions"] = reactions
+        values[key] = value  # the last one wins, as in a form
+        repeated.setdefault(key, []).append(value)
+
+    def read(specs: tuple[FieldSpec, ...]) -> dict[str, Any]:
+        out: dict[str, Any] = {}
+        for s in specs:
+            if s.name == "patient":
+                continue
+            key = key_of(s)
+            if s.kind == "model":
+                sub = read(s.children)
+                if sub:
+                    if s.path == "patient.creatinine" and "value" in sub:
+                        sub.setdefault("unit", "mg/dL")  # links made by hand often leave the unit out
+                    elif s.path == "patient.creatinine":
+                        continue  # a unit or date without a value is no creatinine
+                    out[s.name] = sub
+            elif s.kind == "list" and s.children:
+                rows = []
+                for text in repeated.get(key, []):
+                    parts = [p.strip() for p in text.split(":")]
+                    row = {c.name: _item_value(c, p) for c, p in zip(s.children, parts) if p}
+                    if row:
+                        rows.append(row)
+                if rows:
+                    out[s.name] = rows
+            elif s.kind == "list":
+                items = [v.strip() for v in repeated.get(key, []) if v.strip()]
+                if items:
+                    out[s.name] = items
+            elif s.kind == "bool":
+                if key in values:
+                    flag = _flag(values[key])
+                    if flag is not False:
+                        out[s.name] = flag
+            elif values.get(key, "").strip():
+                text = values[key].strip()
+                out[s.name] = _ALIASES.get(text.lower(), text)
+        return out
+
+    specs = case_specs()
+    case = read(specs)
+    patient = read(next(s for s in specs if s.name == "patient").children)
     if patient:
         case["patient"] = patient
     return case
 
 
+def _item_value(spec: FieldSpec, part: str) -> Any:
+    """One ``:``-part of a repeated key (a flag may be written as its word, e.g. 'breakthrough')."""
+    if spec.kind == "bool":
+        word = ITEM_FLAG_WORDS.get(spec.path)
+        return True if word is not None and part.lower() == word else _flag(part)
+    return part
+
+
+def _item_text(spec: FieldSpec, value: Any) -> str:
+    if value is None or value is False or value == spec.default:
+        return ""
+    if spec.kind == "bool":
+        return ITEM_FLAG_WORDS.get(spec.path, "1")
+    return _text(value)
+
+
 def _text(value: Any) -> str:
     value = getattr(value, "value", value)
+    if isinstance(value, bool):
+        return "1" if value else "0"
     if isinstance(value, float) and value.is_integer():
         return str(int(value))
     return str(value)
 
 
+def _when(spec: FieldSpec, value: Any) -> str:
+    text = _text(value)
+    if spec.kind == "datetime":
+        return text[:16]
+    if spec.kind == "date":
+        return text[:10]
+    return text
+
+
 def query_from_case(case: m.Case | dict[str, Any]) -> str:
     """The query string of a case (a :class:`Case` or a case dict): the inverse of :func:`case_from_query`.
 
-    Only fields that differ from the defaults are written, in a fixed order, so equal cases give equal links.
-    """
+    Only fields that differ from the defaults are written, in the model's order (exam first), so equal
+    cases give equal links."""
     if isinstance(case, m.Case):
         case = case.model_dump(mode="json", exclude_defaults=True)
     pairs: list[tuple[str, str]] = []
-    if case.get("exam"):
-        pairs.append(("exam", str(case["exam"])))
-    if case.get("agent"):
-        pairs.append(("agent", str(case["agent"])))
-    if case.get("scheduled_at"):
-        pairs.append(("at", str(case["scheduled_at"])[:16]))
-    if case.get("as_of"):
-        pairs.append(("asof", str(case["as_of"])[:16]))
-    if case.get("urgency") and _text(case["urgency"]) != "elective":
-        pairs.append(("urgency", _text(case["urgency"])))
-    if case.get("override_culprit") is True:
-        pairs.append(("override", "1"))
-    p = case.get("patient") or {}
-    cr = p.get("creatinine")
-    if cr:
-        pairs.append(("creatinine", _text(cr["value"])))
-        pairs.append(("unit", _text(cr["unit"])))
-        if cr.get("measured_on"):
-            pairs.append(("measured", str(cr["measured_on"])[:10]))
-    for key, field in SCALARS.items():
-        value = p.get(field)
-        if value is None or _text(value) in ("", "none"):
-            continue
-        pairs.append((key, _text(value)))
-    for key, field in FLAGS.items():
-        if p.get(field) is True:
-            pairs.append((key, "1"))
-    iv = p.get("iv_access")
-    if iv:
-        pairs.append(("iv_gauge", _text(iv["gauge"])))
-        pairs.append(("iv_site", _text(iv["site"])))
-    for r in p.get("prior_reactions") or []:
-        parts = [_text(r["agent_family"]), _text(r["kind"]), _text(r["severity"])]
-        if r.get("agent") or r.get("despite_premedication") is True:
-            parts.append(str(r.get("agent") or ""))
-        if r.get("despite_premedication") is True:
-            parts.append(BREAKTHROUGH)
-        pairs.append(("reaction", ":".join(parts)))
+
+    def write(specs: tuple[FieldSpec, ...], data: dict[str, Any]) -> None:
+        for s in specs:
+            value = data.get(s.name)
+            if s.name == "patient" or value is None or value == s.default:
+                continue
+            if s.kind == "model" and isinstance(value, dict):
+                write(s.children, value)
+            elif s.kind == "list" and s.children:
+                for row in value:
+                    parts = [_item_text(c, row.get(c.name)) for c in s.children]
+                    while parts and parts[-1] == "":
+                        parts.pop()
+                    pairs.append((key_of(s), ":".join(parts)))
+            elif s.kind == "list":
+                pairs.extend((key_of(s), _text(v)) for v in value)
+            elif s.kind == "bool":
+                if value is True:
+                    pairs.append((key_of(s), "1"))
+            elif _text(value) not in ("", "none"):
+                pairs.append((key_of(s), _when(s, value)))
+
+    specs = case_specs()
+    write(specs, case)
+    write(next(s for s in specs if s.name == "patient").children, case.get("patient") or {})
     return urlencode(pairs, safe="/:")

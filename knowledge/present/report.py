@@ -14,11 +14,14 @@ import base64
 import datetime as dt
 import html
 from dataclasses import dataclass
+from enum import Enum
 from typing import Any
 
 from ..tables import models as m
 from ..decision.engine import DECISION_SUPPORT
 from ..tables.loader import Knowledge
+from .form import FieldSpec, case_specs, label_of
+from .summary import clock, human_ago, human_duration, plan_summary, split_options
 
 #: ACR Manual on Contrast Media, metformin: withhold for 48 h after contrast when indicated (the
 #: engine's advice text says the same).
@@ -60,7 +63,7 @@ def _mr_us_kind(agent: m.Agent) -> list[str]:
 
 
 def _hours(h: float) -> str:
-    return f"{h:g} h"
+    return human_duration(h)
 
 
 def _clock(at: dt.datetime | None, hours_from_contrast: float) -> str:
@@ -270,8 +273,8 @@ def alert_lines(decision: m.Decision) -> list[str]:
     return lines
 
 
-def note_sections(decision: m.Decision, knowledge: Knowledge,
-                  scheduled_at: dt.datetime | None = None) -> tuple[str, list[tuple[str, list[str]]]]:
+def note_sections(decision: m.Decision, knowledge: Knowledge, scheduled_at: dt.datetime | None = None,
+                  case: m.Case | None = None) -> tuple[str, list[tuple[str, list[str]]]]:
     """The note as a title and (heading, lines) sections; both renderings are built from this. Alerts come
     first, then the exam (with its own notes)."""
     exam = knowledge.exams[decision.exam]
@@ -294,7 +297,12 @@ def note_sections(decision: m.Decision, knowledge: Knowledge,
         head.append(f"Urgency: {urgency.value}")
     if getattr(decision, "exam_notes", ""):
         head.append(f"Exam notes: {decision.exam_notes}")
+    if r.creatinine_age_days is not None:
+        head.append(f"Creatinine sample: {human_ago(r.creatinine_age_days)} at the exam time"
+                    + (" - older than the policy allows; repeat it" if r.creatinine_stale else ""))
     sections.append(("Exam", head))
+    if case is not None:
+        sections.append(("Inputs used", case_input_lines(case)))
     sources: list[str] = []
     for i, role in enumerate(decision.roles):
         chosen = next((o for o in role.options if o.chosen), None)
@@ -310,15 +318,16 @@ def note_sections(decision: m.Decision, knowledge: Knowledge,
         lines.append(f"Agent: {chosen.name} ({agent_kind(agent)}): {verdict_words(chosen.verdict)}")
         lines += dose_lines(decision, i, exam)
         for reason in chosen.reasons:
-            lines.append(f"Why: {reason.text} [{reason.source}]")
             if reason.source not in sources:
                 sources.append(reason.source)
+            lines.append(f"Why: {reason.text} [{sources.index(reason.source) + 1}]")
         for act in chosen.actions:
             lines.append(f"Do: {act}")
-        usable = [o.name for o in role.options if not o.chosen and o.verdict.severity <= 1]
+        usual, other = split_options(role)
+        usable = [o.name for o in usual if not o.chosen and o.verdict.severity <= 1]
         if usable:
             lines.append("Also usable: " + ", ".join(usable))
-        ruled = [f"{o.name} ({verdict_words(o.verdict)})" for o in role.options if o.verdict.severity >= 2]
+        ruled = [f"{o.name} ({verdict_words(o.verdict)})" for o in usual if o.verdict.severity >= 2]
         if len(ruled) > 4:
             lines.append(f"Ruled out: {len(ruled)} agents (" + ", ".join(ruled[:3]) + ", ...)")
         elif ruled:
@@ -337,7 +346,7 @@ def note_sections(decision: m.Decision, knowledge: Knowledge,
         text = knowledge.cite([ref], m.Certainty.verified)
         if text not in sources:
             sources.append(text)
-    sections.append(("Sources", sources))
+    sections.append(("Sources", [f"[{i}] {text}" for i, text in enumerate(sources, start=1)]))
     sections.append(("Knowledge", [
         f"Knowledge version {decision.knowledge_version}; policy {pol.name} ({decision.policy}, "
         f"{knowledge.policy_version})",
@@ -346,9 +355,121 @@ def note_sections(decision: m.Decision, knowledge: Knowledge,
     return title, sections
 
 
+def _value_words(spec: FieldSpec, value: Any) -> str:
+    value = getattr(value, "value", value)
+    if spec.kind in ("number", "integer"):
+        return f"{value:g}" + (f" {spec.unit}" if spec.unit else "")
+    if spec.kind == "datetime" and isinstance(value, dt.datetime):
+        return value.strftime("%a %d %b %Y %H:%M")
+    if spec.kind == "choice":
+        return dict((v, w) for w, v in spec.choices).get(str(value), str(value))
+    return str(value)
+
+
+def case_input_lines(case: m.Case) -> list[str]:
+    """One line per case field that is set (not at its default), in the form's words, generated from the
+    case model: a field added to the model appears here without further edits."""
+    data = case.model_dump(exclude_defaults=True)
+    lines: list[str] = []
+
+    def walk(specs: tuple[FieldSpec, ...], raw: dict[str, Any]) -> None:
+        for sp in specs:
+            if sp.name not in raw or raw[sp.name] is None or sp.name == "patient":
+                continue
+            value = raw[sp.name]
+            if sp.kind == "bool":
+                if value:
+                    lines.append(f"{sp.label}: yes")
+            elif sp.kind == "model":
+                parts = [_value_words(c, value[c.name]) for c in sp.children if value.get(c.name) is not None]
+                lines.append(f"{sp.label}: " + ", ".join(parts))
+            elif sp.kind == "list" and sp.children:
+                for item in value:
+                    parts = [_value_words(c, item[c.name]) for c in sp.children if item.get(c.name) is not None]
+                    lines.append(f"{sp.label}: " + ", ".join(parts))
+            elif sp.kind == "list":
+                lines.append(f"{sp.label}: " + ", ".join(_value_words(sp, v) for v in value))
+            else:
+                lines.append(f"{sp.label}: {_value_words(sp, value)}")
+
+    specs = case_specs()
+    walk(specs, data)
+    walk(next(sp for sp in specs if sp.name == "patient").children, data.get("patient") or {})
+    return lines
+
+
+#: the most lines the short note has (it is pasted into a request or a report)
+SHORT_NOTE_MAX_LINES = 12
+
+
+def _inputs_line(case: m.Case) -> str:
+    p = case.patient
+    parts = []
+    if p.age_years is not None:
+        parts.append(f"{p.age_years:g} years")
+    if p.sex:
+        parts.append(p.sex)
+    if p.weight_kg is not None:
+        parts.append(f"{p.weight_kg:g} kg")
+    return ", ".join(parts) or "age and sex not given"
+
+
+def _history_words(case: m.Case) -> list[str]:
+    """The patient factors that are set, in the form's words (bool flags true, choices not 'none')."""
+    p = case.patient
+    out = []
+    for name, f in m.Patient.model_fields.items():
+        value = getattr(p, name)
+        if f.annotation is bool and value:
+            out.append(label_of(name).lower())
+        elif isinstance(value, Enum) and value.value != "none" and name != "sex":
+            out.append(f"{label_of(name).lower()}: {value.value.replace('_', ' ')}")
+    for r in p.prior_reactions:
+        out.append(f"earlier {r.kind.value.replace('_', '-')} reaction ({r.severity}) to "
+                   + (r.agent or f"an {r.agent_family.value} agent"))
+    return out
+
+
+def short_note(decision: m.Decision, knowledge: Knowledge, case: m.Case) -> str:
+    """The note to paste: at most :data:`SHORT_NOTE_MAX_LINES` lines of plain text. Exam and time, the inputs
+    used (age, sex, creatinine with value, unit and date, eGFR with its equation, the relevant history),
+    the chosen agent and dose per role, alerts, actions with times, policy, knowledge version and the
+    time it was made for (the case's as_of)."""
+    at = case.scheduled_at
+    s = plan_summary(decision, at)
+    lines = [f"Contrast plan: {decision.exam_name}" + (f", exam {at.strftime('%a %d %b %Y %H:%M')}" if at else "")]
+    p, r = case.patient, decision.renal
+    kidney = ""
+    if p.creatinine is not None:
+        unit = "µmol/L" if p.creatinine.unit == "umol/L" else p.creatinine.unit
+        kidney = f"creatinine {p.creatinine.value:g} {unit}"
+        if p.creatinine.measured_on is not None:
+            kidney += f" ({str(p.creatinine.measured_on)[:10]}"
+            kidney += f", {human_ago(r.creatinine_age_days)})" if r.creatinine_age_days is not None else ")"
+        if r.creatinine_stale:
+            kidney += " STALE"
+    if r.egfr is not None:
+        kidney += ("; " if kidney else "") + f"eGFR {r.egfr:g} ({r.note or r.equation}, KDIGO {r.category})"
+    lines.append(f"Patient: {_inputs_line(case)}" + (f"; {kidney}" if kidney else ""))
+    history = _history_words(case)
+    lines.append("History: " + ("; ".join(history) if history else "none recorded"))
+    lines += s.first + s.agents
+    if s.alerts:
+        lines.append("Alerts: " + "; ".join(f"{'STOP ' if lv == 'stop' else ''}{t}" for lv, t in s.alerts))
+    room = SHORT_NOTE_MAX_LINES - len(lines) - 2
+    actions = list(s.actions)
+    if len(actions) > room:
+        actions = actions[:max(room - 1, 0)] + ["; ".join(actions[max(room - 1, 0):])]
+    lines += actions
+    made = f"; made for {case.as_of.strftime('%a %d %b %Y %H:%M')}" if case.as_of else ""
+    lines.append(f"Policy {knowledge.policy.id}; knowledge {decision.knowledge_version}{made}")
+    lines.append("Decision support only: the supervising radiologist and local policy decide.")
+    return "\n".join(lines[:SHORT_NOTE_MAX_LINES])
+
+
 def protocol_note_markdown(decision: m.Decision, knowledge: Knowledge,
-                           scheduled_at: dt.datetime | None = None) -> str:
-    title, sections = note_sections(decision, knowledge, scheduled_at)
+                           scheduled_at: dt.datetime | None = None, case: m.Case | None = None) -> str:
+    title, sections = note_sections(decision, knowledge, scheduled_at, case)
     out = [f"# {title}", "", f"_{DECISION_SUPPORT}_", ""]
     for heading, lines in sections:
         out.append(f"## {heading}")
@@ -358,8 +479,8 @@ def protocol_note_markdown(decision: m.Decision, knowledge: Knowledge,
 
 
 def protocol_note_html(decision: m.Decision, knowledge: Knowledge,
-                       scheduled_at: dt.datetime | None = None) -> str:
-    title, sections = note_sections(decision, knowledge, scheduled_at)
+                       scheduled_at: dt.datetime | None = None, case: m.Case | None = None) -> str:
+    title, sections = note_sections(decision, knowledge, scheduled_at, case)
     e = html.escape
     body = [f"<h1>{e(title)}</h1>", f"<p><em>{e(DECISION_SUPPORT)}</em></p>"]
     for heading, lines in sections:

@@ -181,6 +181,8 @@ def test_ct_angiography_plan_with_times_dose_and_plots(page, voila_server):
     text = page.locator(".ca-app").inner_text()
     assert "Premedication indicated" in text
     assert "Hand or wrist vein: at most 1.5 mL/s" in text
-    note = page.locator(".ca-note textarea").input_value()
-    assert "prednisone 50 mg" in note and "20:00" in note
+    note = page.locator(".ca-short-note").inner_text()  # the note to paste: at most 12 lines
+    assert "prednisone 50 mg" in note and "20:00" in note and len(note.splitlines()) <= 12
+    full = page.locator(".ca-full-note pre").text_content()  # the full note (folded)
+    assert "prednisone 50 mg" in full and "20:00" in full
     screenshot(page, "06-ct-angiography-plan")
