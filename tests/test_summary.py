@@ -136,3 +136,14 @@ def test_full_note_lists_each_source_once(ct, k):
     assert "## Inputs used" in md and "- Age: 71 years" in md
     # people's times: no '13.0 h' style durations
     assert "for 2 days" in md and "for 48 h" not in md
+
+
+def test_a_refused_request_says_no_agent_planned_and_the_stop_alert_first(k):
+    # the culprit of an earlier moderate allergic-like reaction is not planned again by default
+    # (ACR Manual on Contrast Media, allergic-like reactions; rule text in knowledge/data/rules.yaml)
+    d = decide({"exam": "ct-abdomen-pelvis", "agent": "iohexol", "patient": {"prior_reactions": [
+        {"agent_family": "iodinated", "kind": "allergic_like", "severity": "moderate", "agent": "iohexol"}]}}, k)
+    lines = plan_summary(d).lines()
+    assert lines[1].startswith("Intravenous (optional): no agent planned (usable: Iopamidol")
+    stop = next(i for i, x in enumerate(lines) if x.startswith("STOP: Iohexol was requested"))
+    assert stop < next(i for i, x in enumerate(lines) if x.startswith("Premedication"))

@@ -145,7 +145,10 @@ def _agent_line(role: m.RoleDecision) -> tuple[str, bool]:
     chosen = next((o for o in role.options if o.chosen), None)
     head = route_words(role.route).capitalize() + ("" if role.required else " (optional)")
     if chosen is None or chosen.verdict.severity >= m.Verdict.not_advised.severity:
-        return f"{head}: no agent can be given for this patient ({role.purpose})", False
+        usable = [o.name for o in role.options if o.verdict.severity <= 1 and not is_other(o)]
+        if usable:  # none planned (e.g. the requested agent is contraindicated), but others could be
+            return f"{head}: no agent planned (usable: {', '.join(usable[:3])})", True
+        return f"{head}: no agent planned - every agent is advised against or contraindicated here", False
     dose = dose_words(getattr(role, "dose", None) or getattr(role, "agent_dose", None))
     return f"{head}: {chosen.name}" + (f" {dose}" if dose else "") + f" ({verdict_words(chosen.verdict)})", True
 
@@ -205,6 +208,9 @@ def action_lines(decision: m.Decision, scheduled_at: dt.datetime | None = None) 
 def plan_summary(decision: m.Decision, scheduled_at: dt.datetime | None = None) -> Summary:
     """The plan at a glance (see the module docstring)."""
     s = Summary(exam=decision.exam_name)
+    reason = getattr(decision, "cannot_proceed_reason", None)
+    if reason:
+        s.first.append(f"The exam as requested cannot be done with contrast: {reason}")
     if decision.contrast is m.ContrastUse.none:
         s.first.append("No contrast is used for this exam.")
     blocked = []
