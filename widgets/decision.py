@@ -219,7 +219,8 @@ class SummaryPanel(w.VBox):
         self.text = summary.text()
         first = "".join(f"<p class='ca-first'><b>{e(x)}</b></p>" for x in summary.first)
         agents = "".join(f"<li>{e(x)}</li>" for x in summary.agents)
-        alerts = "".join(f"<li class='ca-plan-alert ca-plan-alert-{e(lv)}'><b>{'Stop' if lv == 'stop' else 'Warning'}:</b> "
+        alerts = "".join(f"<li class='ca-plan-alert ca-plan-alert-{e(lv)}'><b><span aria-hidden='true'>"
+                         f"{ALERT_LOOK.get(lv, ('⚠',))[0]}</span> {'Stop' if lv == 'stop' else 'Warning'}:</b> "
                          f"{e(t)}</li>" for lv, t in summary.alerts)
         actions = "".join(f"<li>{e(x)}</li>" for x in summary.actions)
         html_text = (f"<h2>Plan: {e(summary.exam)}</h2>{first}<ul class='ca-plan-agents'>{agents}</ul>"

@@ -67,7 +67,8 @@ CSS = """
 .ca-app, .ca-app * { box-sizing: border-box; }
 .ca-app { max-width: 100%; overflow: visible !important; overflow-x: clip !important; }
 .ca-main { display: grid !important; grid-template-columns: minmax(280px, 370px) minmax(0, 1fr);
-  grid-template-areas: "inputs summary" "inputs details"; gap: 8px 16px; align-items: start; width: 100%; }
+  grid-template-areas: "inputs summary" "inputs details"; grid-template-rows: auto 1fr;
+  gap: 8px 16px; align-items: start; width: 100%; }
 .ca-main > .ca-summary-box { grid-area: summary; min-width: 0; }
 .ca-main > .ca-inputs { grid-area: inputs; min-width: 0; }
 .ca-main > .ca-details { grid-area: details; min-width: 0; }

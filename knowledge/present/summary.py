@@ -207,7 +207,9 @@ def action_lines(decision: m.Decision, scheduled_at: dt.datetime | None = None) 
 
 def plan_summary(decision: m.Decision, scheduled_at: dt.datetime | None = None) -> Summary:
     """The plan at a glance (see the module docstring)."""
-    s = Summary(exam=decision.exam_name)
+    urgency = getattr(decision, "urgency", None)
+    urgent = urgency is not None and getattr(urgency, "value", urgency) != "elective"
+    s = Summary(exam=decision.exam_name + (f" ({getattr(urgency, 'value', urgency)})" if urgent else ""))
     reason = getattr(decision, "cannot_proceed_reason", None)
     if reason:
         s.first.append(f"The exam as requested cannot be done with contrast: {reason}")
