@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import datetime as dt
 import html
+import logging
 import os
 from typing import Any
 
@@ -16,7 +17,7 @@ import ipywidgets as w
 import traitlets
 
 from knowledge.tables import models as m
-from knowledge.decision.engine import DECISION_SUPPORT, parse_case
+from knowledge.decision.engine import DECISION_SUPPORT, parse_form_case
 from knowledge.decision.engine import decide
 from knowledge.errors import ContrastAidError
 from knowledge.present.form import case_problems
@@ -30,6 +31,8 @@ from .decision import DecisionPanel
 from .inputs import ExamPicker, PatientPanel
 from .panels import KnowledgeBrowser, ProtocolNote
 from .style import CSS
+
+_log = logging.getLogger(__name__)
 
 CAUTION = ("Decision support only: local policy and the supervising radiologist decide; licensed practice "
            "applies. Check every suggestion against the patient and the local product information.")
@@ -209,11 +212,16 @@ class ContrastAidApp(w.VBox):
         case = decision = None
         if not problems:
             try:
-                case = parse_case(data)
+                case = parse_form_case(data)
                 decision = decide(case, self.knowledge)
                 self._update_whatif(case)
             except ContrastAidError as exc:
-                problems = [(exc.field or exc.message.split(":")[0], exc.message)]
+                problems = [(exc.field or "", exc.message)]
+            except Exception as exc:  # never leave the last plan on screen as if it were current
+                _log.error("recompute failed: %s (case values not logged)", type(exc).__name__)
+                case = decision = None
+                problems = [("", "Not updated: the plan could not be worked out for these inputs "
+                                 f"(internal error {type(exc).__name__}); the plan shown is not current")]
         by_field: dict[str, list[str]] = {}
         for field, message in problems:
             by_field.setdefault(_field_key(field), []).append(message)

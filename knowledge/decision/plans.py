@@ -47,7 +47,7 @@ def _as_case_field(exc: ContrastAidError) -> ContrastAidError:
     field = exc.field or ""
     if field.startswith(_OWN_PREFIXES):
         return exc
-    return type(exc)(f"patient.{exc.message}", field=f"patient.{field}")
+    return exc.at("patient")
 
 
 # --------------------------------------------------------------------------------------------------

@@ -71,8 +71,10 @@ def case_problems(data: dict) -> list[tuple[str, str]]:
 
     from ..tables.validation import problems
 
+    from ..decision.engine import case_time_problems
+
     try:
-        m.Case.model_validate(data)
+        case = m.Case.model_validate(data)
     except ValidationError as exc:
         return problems(exc, m.Case)
-    return []
+    return [(e.field or "", e.message) for e in case_time_problems(case)]
