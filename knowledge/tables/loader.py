@@ -207,7 +207,7 @@ def load_policy(path: Path | str | None = None) -> tuple[m.Policy, bytes]:
         raise error_from(exc, m.Policy, KnowledgeError, "policy", where=p.name) from None
 
 
-def load_knowledge(data_dir: Path | str | None = None, policy: Path | str | None = None) -> Knowledge:
+def load_knowledge(data_dir: Path | str | None = None, policy: Path | str | m.Policy | None = None) -> Knowledge:
     """Read, validate and index every table and the policy. Raises :class:`KnowledgeError`."""
     base = Path(data_dir) if data_dir else DATA_DIR
     raw: dict[str, Any] = {}
@@ -216,7 +216,10 @@ def load_knowledge(data_dir: Path | str | None = None, policy: Path | str | None
         data, blob = _read_yaml(base / f"{name}.yaml")
         raw[name] = data
         digest.update(name.encode() + b"\0" + blob + b"\0")
-    pol, pol_blob = load_policy(policy)
+    if isinstance(policy, m.Policy):  # an already validated policy object (tests sweep thresholds this way)
+        pol, pol_blob = policy, policy.model_dump_json().encode("utf-8")
+    else:
+        pol, pol_blob = load_policy(policy)
 
     models = {
         "sources": m.Source,

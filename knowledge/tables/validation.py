@@ -47,7 +47,12 @@ def dotted(loc: tuple) -> str:
 
 def clean_loc(loc: tuple) -> tuple:
     """``loc`` without the member names unions add to it ("function-after[...]", "Test", ...)."""
-    return tuple(p for p in loc if isinstance(p, int) or ("[" not in p and not p[:1].isupper()))
+    return tuple(p for p in loc if isinstance(p, int) or ("[" not in p and not p[:1].isupper()
+                                                          and p not in _UNION_TAGS))
+
+
+#: Names pydantic adds to a location for the member of a union of plain types (``date | datetime``)
+_UNION_TAGS = frozenset({"date", "datetime", "float", "int", "str", "bool", "list", "dict", "none"})
 
 
 def _one(model: type[BaseModel], err: dict, prefix: str) -> dict[str, Any]:
