@@ -237,7 +237,38 @@ def cmd_knowledge_check(args: argparse.Namespace) -> int:
         f"knowledge ok: {c['exams']} exams, {c['agents']} agents, {c['rules']} rules, {c['sources']} sources; "
         f"version {k.version}; policy {k.policy.id} ({k.policy_version})\n"
     )
+    if getattr(args, "lint", False):
+        _write_lint(k, getattr(args, "json", False))
     return 0
+
+
+def cmd_knowledge_lint(args: argparse.Namespace) -> int:
+    _write_lint(_knowledge(args), args.json)
+    return 0
+
+
+def _write_lint(k, as_json: bool) -> None:
+    from ..tables.lint import lint, patient_factors
+
+    report = lint(k)
+    if as_json:
+        _print_json(report.as_dict())
+        return
+    out = sys.stdout.write
+    out(f"rules that can never fire: {', '.join(report.never_fire) or 'none'}\n")
+    if report.undecided:
+        out(f"rules too large to decide: {', '.join(report.undecided)}\n")
+    out(f"sources no table record cites (calculators may cite them in their docstrings): {', '.join(report.sources_never_cited) or 'none'}\n")
+    out(f"agents never offered: {', '.join(report.agents_never_offered) or 'none'}\n")
+    out("coverage (exam x patient factor -> the rules that consider it):\n")
+    factors = patient_factors()
+    for exam_id, row in report.coverage.items():
+        out(f"  {exam_id}\n")
+        for fact, rules in row.items():
+            out(f"    {fact:<44} {', '.join(rules)}\n")
+        missing = [f for f in factors if f not in row]
+        if missing:
+            out(f"    {'(considered by no rule)':<44} {', '.join(missing)}\n")
 
 
 def cmd_knowledge_schema(args: argparse.Namespace) -> int:
@@ -303,7 +334,13 @@ def build_parser() -> argparse.ArgumentParser:
     ksub = kn.add_subparsers(dest="knowledge_command", required=True, parser_class=_Parser)
     p = with_policy(ksub.add_parser("check", help="validate the tables and the policy, print counts"))
     p.add_argument("--data", metavar="DIR", help="a folder of tables to check instead of the bundled one")
+    p.add_argument("--lint", action="store_true", help="also print the lint (see `knowledge lint`)")
     p.set_defaults(func=cmd_knowledge_check)
+    p = with_policy(ksub.add_parser("lint", help="rules that never fire, sources never cited, agents never "
+                                                 "offered, and the exam x patient factor coverage"))
+    p.add_argument("--data", metavar="DIR", help="a folder of tables to lint instead of the bundled one")
+    p.add_argument("--json", action="store_true")
+    p.set_defaults(func=cmd_knowledge_lint)
     p = ksub.add_parser("schema", help="JSON Schema of the tables, policy, case and decision")
     p.set_defaults(func=cmd_knowledge_schema)
     p = ksub.add_parser("facts", help="the facts rule conditions may test")
