@@ -12,7 +12,7 @@ from typing import Any
 import ipywidgets as w
 import traitlets
 
-from knowledge.tables import models as m
+from knowledge.tables import constants, models as m
 from knowledge.present.form import NUMBERS, creatinine_hint, hint
 from knowledge.tables.loader import Knowledge
 
@@ -325,7 +325,7 @@ FLAG_LABEL = {
     "manifest_hyperthyroidism": "Manifest (overt) hyperthyroidism now",
     "pheochromocytoma": "Pheochromocytoma or paraganglioma",
 }
-IV_SITES = ["antecubital", "forearm", "hand_or_wrist", "central_power_injectable", "central_not_power_rated"]
+IV_SITES = list(constants.IV_SITES)
 
 
 class PatientPanel(w.VBox):

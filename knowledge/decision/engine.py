@@ -20,6 +20,7 @@ from pydantic import BaseModel, ValidationError
 from ..tables import models as m
 from ..calculators import kidney
 from ..errors import NO_VALUE, CaseError, ContrastAidError, suggest
+from ..tables.constants import METFORMIN_HOLD_HOURS, SEVERITY_ORDER, SEVERITY_RANK
 from ..tables.loader import Knowledge, exam_facts
 from .plans import add_plans
 from ..tables.validation import error_from
@@ -34,8 +35,8 @@ READINESS = (
 _SYSTEMIC = m.INTRAVASCULAR | {m.Route.intrathecal}
 #: An exam may be planned at most this many years after the case's "now" (the plans work in hours).
 MAX_YEARS_AHEAD = 5
-_SEVERITY = {"none": 0, "mild": 1, "moderate": 2, "severe": 3}
-_SEVERITY_NAME = {v: k for k, v in _SEVERITY.items()}
+_SEVERITY = SEVERITY_RANK
+_SEVERITY_NAME = dict(enumerate(SEVERITY_ORDER))
 
 
 def _json_default(value: Any) -> Any:
@@ -507,8 +508,8 @@ def _metformin_advice(case: m.Case, egfr: float | None, hold: bool, iodinated_in
         return ("On dialysis: metformin is contraindicated in any case - check the medication list with the "
                 "prescriber; contrast does not change it")
     if hold:
-        return ("Withhold metformin from the time of contrast for 48 h; restart only after kidney function "
-                "is re-checked")
+        return (f"Withhold metformin from the time of contrast for {METFORMIN_HOLD_HOURS:g} h; restart only after "
+                "kidney function is re-checked")
     if iodinated_intravascular and egfr is None and not p.acute_kidney_injury:
         # also when carbon dioxide is planned: an iodinated top-up may follow
         raised.alert("warn", "Takes metformin and no eGFR is known: obtain an eGFR before intravascular iodinated "

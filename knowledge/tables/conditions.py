@@ -11,12 +11,13 @@ from typing import Any, Callable
 
 from . import models as m
 from ..errors import KnowledgeError
+from .constants import SEVERITY_RANK
 from .facts import FACTS
 
 Facts = dict[str, Any]
 Compiled = Callable[[Facts], bool]
 
-_SEVERITY_RANK = {"none": 0, "mild": 1, "moderate": 2, "severe": 3}
+_SEVERITY_RANK = SEVERITY_RANK
 
 
 def facts_used(cond: m.Condition) -> set[str]:
@@ -130,7 +131,7 @@ def compile_condition(cond: m.Condition, policy: m.Policy, where: str, scope: m.
             raise KnowledgeError(f"{where}: operator {op} needs a numeric fact or a severity; {key} is {spec.kind}")
         if is_severity:  # severity comparisons: none < mild < moderate < severe
             if raw not in _SEVERITY_RANK:
-                raise KnowledgeError(f"{where}: {raw!r} is not a severity; allowed: none, mild, moderate, severe")
+                raise KnowledgeError(f"{where}: {raw!r} is not a severity; allowed: {', '.join(SEVERITY_RANK)}")
             bound = _SEVERITY_RANK[raw]
             get = lambda f: _SEVERITY_RANK[f.get(key) or "none"]  # noqa: E731
         else:

@@ -12,6 +12,8 @@ from typing import Annotated, Any, Literal, Union
 
 from pydantic import AfterValidator, BaseModel, ConfigDict, Field, WithJsonSchema, model_validator
 
+from .constants import HEIGHT_CM_RANGE, IV_SITES, SEVERITY_ORDER, WEIGHT_KG_RANGE
+
 
 class Strict(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True, use_enum_values=False, allow_inf_nan=False)
@@ -604,7 +606,7 @@ class PriorReaction(Strict):
         description="allergic_like or physiologic (immediate, within an hour), or delayed (hours to days, mostly "
                     "skin; severe = Stevens-Johnson syndrome / toxic epidermal necrolysis, DRESS or another severe "
                     "cutaneous adverse reaction)")
-    severity: Literal["mild", "moderate", "severe"] = Field(description="mild, moderate or severe")
+    severity: Literal[SEVERITY_ORDER[1:]] = Field(description="mild, moderate or severe")  # type: ignore[valid-type]
     agent: str | None = Field(None, description="The culprit agent's id, if known")
     despite_premedication: bool = Field(
         False, description="A breakthrough reaction: it happened although the patient had been premedicated")
@@ -612,16 +614,14 @@ class PriorReaction(Strict):
 
 class IVAccess(Strict):
     gauge: int = Field(description="Catheter gauge", ge=14, le=24)
-    site: Literal[
-        "antecubital", "forearm", "hand_or_wrist", "central_power_injectable", "central_not_power_rated"
-    ] = Field(description="Where the catheter is")
+    site: Literal[IV_SITES] = Field(description="Where the catheter is")  # type: ignore[valid-type]
 
 
 class Patient(Strict):
     age_years: float | None = Field(None, description="Age in years", ge=0, le=120)
     sex: Literal["female", "male"] | None = Field(None, description="Sex used by the eGFR equations")
-    weight_kg: float | None = Field(None, description="Body weight, kg", ge=0.5, le=350)
-    height_cm: float | None = Field(None, description="Height, cm", ge=30, le=250)
+    weight_kg: float | None = Field(None, description="Body weight, kg", ge=WEIGHT_KG_RANGE[0], le=WEIGHT_KG_RANGE[1])
+    height_cm: float | None = Field(None, description="Height, cm", ge=HEIGHT_CM_RANGE[0], le=HEIGHT_CM_RANGE[1])
     creatinine: Creatinine | None = Field(None, description="Serum creatinine")
     cystatin_c_mg_l: float | None = Field(None, description="Serum cystatin C, mg/L", gt=0)
     egfr: float | None = Field(None, description="eGFR entered directly, mL/min/1.73 m²", ge=1, le=200)
