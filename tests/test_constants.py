@@ -36,7 +36,7 @@ def test_each_clinical_constant_is_defined_once():
 
 
 def test_every_user_of_a_constant_imports_the_same_object():
-    assert dose.WEIGHT_KG_RANGE is body.WEIGHT_KG_RANGE is limits.WEIGHT_KG_RANGE is hydration.WEIGHT_KG_RANGE is c.WEIGHT_KG_RANGE
+    assert dose.WEIGHT_KG_RANGE == body.WEIGHT_KG_RANGE == limits.WEIGHT_KG_RANGE == hydration.WEIGHT_KG_RANGE == c.WEIGHT_KG_RANGE
     assert access.SITES is c.IV_SITES and set(m.IVAccess.model_fields["site"].annotation.__args__) == set(c.IV_SITES)
     assert report.METFORMIN_HOLD_HOURS == timeline.METFORMIN_RECHECK_HOURS == c.METFORMIN_HOLD_HOURS == 48
     assert plans.VISCOUS_MPAS_37C is c.VISCOUS_MPAS_37C
