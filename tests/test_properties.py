@@ -347,14 +347,12 @@ def culprit_cases(draw):
     return case, culprit
 
 
-#: found by this property on main: a physiologic reaction to room air leaves room air chosen for the
-#: enema's insufflation role (reaction-culprit-agent gives no verdict to a non-iodinated culprit)
+#: found by this property before issue 8 made the culprit rank last: a physiologic reaction to room air
+#: left room air chosen for the enema's insufflation role; kept as a fixed example
 ROOM_AIR_CULPRIT = ({"exam": "fluoro-contrast-enema", "as_of": AS_OF.isoformat(), "patient": {"prior_reactions": [
     {"agent_family": "gas", "kind": "physiologic", "severity": "mild", "agent": "room-air"}]}}, "room-air")
 
 
-@pytest.mark.xfail(strict=True, reason="issue 8 makes the culprit agent rank last; on this branch a culprit "
-                                       "that no rule rules out (e.g. room air) can still be chosen")
 def test_the_culprit_agent_is_never_chosen():
     @SETTINGS
     @example(pair=ROOM_AIR_CULPRIT, policy="default.yaml")
