@@ -5,7 +5,7 @@ The dashboard is opened with a query such as
 Only the clinical factors of :class:`knowledge.tables.models.Patient` travel; the case model has no field for a
 name, a record number or a date of birth, and unknown keys (for example those Voila adds) are ignored.
 
-Values are passed on as given (strings); :func:`knowledge.decision.engine.parse_case` validates them and names
+Values are passed on as given (strings); :func:`knowledge.decision.engine.parse_form_case` validates them and names
 the field of any bad value, so a link can never crash the dashboard.
 """
 
@@ -67,11 +67,11 @@ def _flag(value: str) -> bool | str:
         return True
     if low in _FALSE:
         return False
-    return value  # left for parse_case to reject, naming the field
+    return value  # left for parse_form_case to reject, naming the field
 
 
 def case_from_query(query: str) -> dict[str, Any]:
-    """A case dict (for ``parse_case``) from a URL query string; unknown keys are ignored.
+    """A case dict (for ``parse_form_case``) from a URL query string; unknown keys are ignored.
 
     Keys: ``exam``, ``agent``, ``at`` (the exam's date-time), ``asof`` (the "now" the link was made for),
     ``creatinine`` with ``unit`` (``mg/dL``

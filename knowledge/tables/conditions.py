@@ -10,7 +10,7 @@ from __future__ import annotations
 from typing import Any, Callable
 
 from . import models as m
-from ..errors import KnowledgeError
+from ..errors import KnowledgeError, suggest
 from .constants import SEVERITY_RANK
 from .facts import FACTS
 
@@ -119,7 +119,11 @@ def compile_condition(cond: m.Condition, policy: m.Policy, where: str, scope: m.
 
     spec = FACTS.get(cond.fact)
     if spec is None:
-        raise KnowledgeError(f"{where}: unknown fact {cond.fact!r}; see `contrast-aid knowledge facts` for the catalogue")
+        near = suggest(cond.fact, FACTS)
+        hint = f" (did you mean {near}?)" if near else ""
+        raise KnowledgeError(f"{where}: unknown fact {cond.fact!r}{hint}; see `contrast-aid knowledge facts` for the "
+                             "catalogue", field=where, value=cond.fact, suggestion=near,
+                             allowed="the facts of `contrast-aid knowledge facts`")
     if scope is m.Scope.case and spec.scope == "agent":
         raise KnowledgeError(f"{where}: fact {cond.fact} is per agent; a case-scope rule cannot test it")
     op, raw = cond.operator, cond.operand
