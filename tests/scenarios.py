@@ -10,6 +10,8 @@ A vector: ``id``, ``source`` (the published source of the expectation, or "commo
 - ``not_rules``: {ROLE: {agent: [rule ids that must not have fired]}}
 - ``actions_contain``: {ROLE: {agent: [substrings of its actions]}}
 - ``blocks``: {"renal.hydration_indicated": true, "premedication.indicated": false, "metformin.hold": true, ...}
+  (a number in the path indexes a list: ``roles.0.agent_dose.volume_ml``)
+- beside ``case``: ``policy``, the stem of a file in knowledge/data/policies/ (default: default.yaml)
 - ``cautions_contain``: [substrings]; ``cautions_lack``: [substrings]
 - ``blocks_contain``: {"renal.note": substring, "premedication.warnings": substring, ...} (lists are joined)
 - ``alerts_contain``: ["stop: substring", "warn: substring", "substring"]; ``alerts_lack``: [substrings];
@@ -50,7 +52,7 @@ def options(role) -> dict[str, Any]:
 def block_value(decision, dotted: str) -> Any:
     value: Any = decision
     for part in dotted.split("."):
-        value = getattr(value, part)
+        value = value[int(part)] if part.isdigit() else getattr(value, part)  # roles.0.agent_dose (issue 13)
     return value.value if hasattr(value, "value") else value
 
 

@@ -134,7 +134,7 @@ def test_misspelt_enum_value_is_rejected(tmp_path):
     d = _broken(tmp_path, "rules", lambda rows: _rule(rows, "barium-perforation")["when"]["all"][1].update(
         **{"is": "barim"}))
     assert _error(d) == ("rules.yaml: rule barium-perforation: 'barim' is not a value of agent.family; "
-                         "allowed: gas, water, barium, iodinated, oil")
+                         "allowed: gas, water, barium, iodinated, oil, gadolinium, microbubble")
 
 
 def test_unknown_source_is_rejected(tmp_path):

@@ -21,6 +21,7 @@ LAYERS = [
     "knowledge.calculators",
     "knowledge.decision",
     "knowledge.present",
+    "knowledge.review",
     "widgets",
     "knowledge.cli",
 ]

@@ -197,3 +197,16 @@ def test_exhaustive_threshold_sweep():
     print(f"threshold sweep: 125 policies, {accepted} accepted, {rejected} refused as inconsistent; "
           f"{non_monotone} make a lower eGFR less restrictive")
     assert accepted + rejected == 125 and accepted > 0 and rejected > 0
+
+
+def test_an_overlay_cannot_switch_a_threshold_off_with_a_yaml_boolean_or_text(tmp_path):
+    # issue 9 for department overlays (issue 12): `yes` would be read as 1.0 and turn hydration off
+    from knowledge.tables.loader import load_policy
+
+    for value in ("yes", "'30'", "on"):
+        path = tmp_path / "overlay.yaml"
+        path.write_text(f"base: default\nid: invented-dept\nname: Invented\nthresholds:\n"
+                        f"  egfr_hydration_below: {value}\n", encoding="utf-8")
+        with pytest.raises(KnowledgeError) as exc:
+            load_policy(path)
+        assert "overlay.thresholds.egfr_hydration_below" in str(exc.value) and "is not a number" in str(exc.value)

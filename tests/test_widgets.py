@@ -55,7 +55,8 @@ def test_exam_labels_are_grouped_by_modality_and_show_purpose(app):
     labels = [label for label, _ in app.exam.select.options]
     assert "CT · CT abdomen and pelvis" in labels
     order = [label.split(" · ")[0] for label in labels]
-    assert order == sorted(order, key=["Fluoro", "Angio", "CT"].index)
+    assert order == sorted(order, key=["Fluoro", "Angio", "CT", "MRI", "US"].index)
+    assert {"MRI", "US"} <= set(order)  # issue 13: the new modalities are grouped too
     app.exam.select.value = "fluoro-esophagram"
     assert app.knowledge.exams["fluoro-esophagram"].purpose in app.exam.purpose.value
 

@@ -31,6 +31,7 @@ from .decision import DecisionPanel
 from .inputs import ExamPicker, PatientPanel
 from .panels import KnowledgeBrowser, ProtocolNote
 from .style import CSS
+from .worklist import worklist_section
 
 _log = logging.getLogger(__name__)
 
@@ -107,6 +108,7 @@ class ContrastAidApp(w.VBox):
         self.children = [w.HTML(CSS), title, self.caution,
                          w.HBox([left, right], layout=w.Layout(flex_flow="row wrap", align_items="flex-start")),
                          browser_box]
+        self.children += (worklist_section(self),)  # the worklist tab (widgets/worklist.py)
 
         if query:
             self.prefill(query)

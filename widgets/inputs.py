@@ -16,8 +16,10 @@ from knowledge.tables import constants, models as m
 from knowledge.present.form import NUMBERS, creatinine_hint, hint
 from knowledge.tables.loader import Knowledge
 
-MODALITY_LABEL = {m.Modality.fluoroscopy: "Fluoro", m.Modality.angiography: "Angio", m.Modality.ct: "CT"}
-MODALITY_ORDER = {m.Modality.fluoroscopy: 0, m.Modality.angiography: 1, m.Modality.ct: 2}
+MODALITY_LABEL = {m.Modality.fluoroscopy: "Fluoro", m.Modality.angiography: "Angio", m.Modality.ct: "CT",
+                  m.Modality.mri: "MRI", m.Modality.ultrasound: "US"}
+MODALITY_ORDER = {m.Modality.fluoroscopy: 0, m.Modality.angiography: 1, m.Modality.ct: 2,
+                  m.Modality.mri: 3, m.Modality.ultrasound: 4}
 _WIDE = w.Layout(width="230px")
 _DESC = {"description_width": "initial"}
 
@@ -299,7 +301,8 @@ GROUP_FLAGS = {
             "obstruction_high_grade"],
     "other": ["takes_metformin", "hyperthyroidism", "radioiodine_planned", "pregnant", "breastfeeding",
               "shellfish_or_iodine_allergy", "heart_failure", "myasthenia_gravis", "inpatient",
-              "manifest_hyperthyroidism", "pheochromocytoma"],
+              "manifest_hyperthyroidism", "pheochromocytoma",
+              "peg_allergy", "unstable_cardiopulmonary"],  # the last two: MRI and ultrasound (issue 13)
 }
 FLAG_LABEL = {
     "acute_kidney_injury": "Acute kidney injury now",
@@ -324,6 +327,8 @@ FLAG_LABEL = {
     "obstruction_high_grade": "Obstruction is high-grade",
     "manifest_hyperthyroidism": "Manifest (overt) hyperthyroidism now",
     "pheochromocytoma": "Pheochromocytoma or paraganglioma",
+    "peg_allergy": "Polyethylene glycol (PEG) hypersensitivity",
+    "unstable_cardiopulmonary": "Pulmonary hypertension or unstable cardiopulmonary condition",
 }
 IV_SITES = list(constants.IV_SITES)
 

@@ -210,7 +210,11 @@ def timeline_figure(items: list[TimelineItem], scheduled_at: dt.datetime | None)
 
 # ---- dose plan ----------------------------------------------------------------------------------
 def dose_figure(decision: m.Decision, knowledge: Knowledge) -> tuple[dict | None, str]:
-    """The first intravascular role's dose block (``RoleDecision.dose``) against the agent's strengths."""
+    """The first intravascular role's dose block (``RoleDecision.dose``) against the agent's strengths;
+    for MRI and ultrasound the gadolinium or microbubble dose (``RoleDecision.agent_dose``)."""
+    if not any(getattr(r, "dose", None) is not None for r in decision.roles) and any(
+            getattr(r, "agent_dose", None) is not None for r in decision.roles):
+        return agent_dose_figure(decision, knowledge)
     role = next((r for r in decision.roles if getattr(r, "dose", None) is not None), None)
     dose = getattr(role, "dose", None)
     exam = knowledge.exams[decision.exam]
@@ -253,3 +257,45 @@ def dose_figure(decision: m.Decision, knowledge: Knowledge) -> tuple[dict | None
                   xaxis=dict(title=dict(text="strengths of the agent")))
     fig = dict(data=data, layout=layout)
     return fig, title + ". Volume by strength: " + ", ".join(f"{c:g} mg I/mL → {v:.0f} mL" for c, v in pairs)
+
+
+# ---- gadolinium and microbubble doses (issue 13) -------------------------------------------------
+def agent_dose_figure(decision: m.Decision, knowledge: Knowledge) -> tuple[dict | None, str]:
+    """Volume for this patient of each usable agent of the role at its labelled standard dose (gadolinium:
+    the mmol are the same, the mL differ with the strength), the chosen one marked; a microbubble dose as
+    one bar. Returns (None, words) when the volume cannot be worked out (no weight)."""
+    rd = next(r for r in decision.roles if getattr(r, "agent_dose", None) is not None)
+    d = rd.agent_dose
+    chosen = knowledge.agents[d.agent]
+    if d.volume_ml is None:
+        return None, f"Dose plan ({chosen.name}): {d.basis}. " + " ".join(d.warnings)
+    rows: list[tuple[str, float, str]] = []
+    if d.family is m.Family.gadolinium and d.dose_mmol and d.dose_mmol_kg:
+        weight = d.dose_mmol / d.dose_mmol_kg
+        for o in rd.options:
+            a = knowledge.agents[o.agent]
+            if o.agent == d.agent:
+                rows.append((a.name, d.volume_ml, f"{d.volume_ml:g} mL = {d.dose_mmol:g} mmol (planned)"))
+            elif o.verdict.severity <= 1 and a.standard_dose_ml_kg and a.standard_dose_mmol_kg:
+                vol = round(a.standard_dose_ml_kg * weight, 1)
+                rows.append((a.name, vol, f"{vol:g} mL = {a.standard_dose_mmol_kg * weight:.2g} mmol"))
+    else:
+        rows.append((chosen.name, d.volume_ml, f"{d.volume_ml:g} mL (planned)"))
+    names = [r[0] for r in rows]
+    data = [dict(
+        type="bar", x=names, y=[r[1] for r in rows],
+        marker=dict(color=["#0072B2" if n == chosen.name else "#98b6d8" for n in names],
+                    pattern=dict(shape=["" if n == chosen.name else "." for n in names], fillmode="overlay",
+                                 fgcolor="#ffffff", fgopacity=0.6)),
+        text=[r[2] for r in rows], textposition="outside", cliponaxis=False, hoverinfo="text",
+        hovertext=[r[2] for r in rows])]
+    amount = f"{d.dose_mmol:g} mmol ({d.dose_mmol_kg:g} mmol/kg), " if d.dose_mmol is not None else ""
+    title = (f"{chosen.name}: {amount}{d.volume_ml:g} mL"
+             + (f" at {d.flow_ml_s:g} mL/s" if d.flow_ml_s is not None else ""))
+    layout = _base_layout(230)
+    layout.update(title=dict(text=title, font=dict(size=12)),
+                  yaxis=dict(title=dict(text="volume for this patient, mL"),
+                             range=[0, max(r[1] for r in rows) * 1.3]),
+                  xaxis=dict(title=dict(text="usable agents at their labelled standard dose"
+                                        if d.family is m.Family.gadolinium else "agent")))
+    return dict(data=data, layout=layout), title + ". " + "; ".join(f"{r[0]}: {r[2]}" for r in rows)

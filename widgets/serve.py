@@ -108,14 +108,15 @@ def voila_command(port: int, policy: str | os.PathLike | None) -> list[str]:
 
 
 def check_policy(policy: str | os.PathLike | None) -> str | None:
-    """None when the policy file loads, else the one-line message of its KnowledgeError."""
+    """None when the policy file (a plain policy or a department overlay) loads, else the one-line message
+    of its KnowledgeError. An overlay is checked against the tables too (its agents, exams, strengths)."""
     if not policy:
         return None
     from knowledge.errors import KnowledgeError
-    from knowledge.tables.loader import load_policy
+    from knowledge.tables.loader import load_knowledge
 
     try:
-        load_policy(policy)
+        load_knowledge(policy=policy)
     except KnowledgeError as exc:
         return str(exc)
     return None

@@ -91,6 +91,7 @@ def dose_plan(args: argparse.Namespace, knowledge: Any = None) -> dict[str, Any]
     role = m.ExamRole(route=route, purpose="dose command", agents=[agent.id], catheter_study=catheter,
                       renal_exposure=m.RenalExposure.second_pass)
     out["dose_limits"] = _dose_limits([(role, block)], patient, k.policy, agfr).model_dump(mode="json")
+    out.update(policy=k.policy.id, policy_version=k.policy_version, knowledge_version=k.version)
     return out
 
 

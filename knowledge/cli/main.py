@@ -16,6 +16,7 @@ from typing import Any, Sequence
 from ..tables import models as m
 from ..errors import CaseError, ContrastAidError
 from .dose import add_dose_parser
+from .department import add_department_parsers
 
 EXIT_BAD_INPUT = 2
 
@@ -139,6 +140,10 @@ def cmd_decide(args: argparse.Namespace) -> int:
 
     k = _knowledge(args)
     case = with_as_of(read_case_file(args.case), args)
+    if isinstance(case, dict) and isinstance(case.get("exam"), str):  # a local procedure code of an overlay
+        from ..decision.department import resolve_exam
+
+        case = {**case, "exam": resolve_exam(case["exam"], k)}
     decision = decide(case, k)
     _print_json(decision.model_dump(mode="json"))
     return 0
@@ -351,6 +356,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.set_defaults(func=cmd_serve)
 
     add_dose_parser(sub)
+    add_department_parsers(sub, _Parser)  # policy check|diff, review (department overlay, worklists)
     return parser
 
 

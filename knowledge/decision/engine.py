@@ -24,13 +24,14 @@ from ..tables.constants import METFORMIN_HOLD_HOURS, SEVERITY_ORDER, SEVERITY_RA
 from ..tables.loader import Knowledge, exam_facts
 from .plans import add_plans
 from ..tables.validation import error_from
+from . import department
 
 DECISION_SUPPORT = (
     "Decision support only: the supervising radiologist, local policy and licensed practice decide."
 )
 READINESS = (
-    "Wherever iodinated contrast is given, trained staff, a reaction kit and epinephrine must be at hand "
-    "(common practice)."
+    "Wherever iodinated or gadolinium contrast is given, trained staff, a reaction kit and epinephrine must be "
+    "at hand (common practice)."
 )
 _SYSTEMIC = m.INTRAVASCULAR | {m.Route.intrathecal}
 #: An exam may be planned at most this many years after the case's "now" (the plans work in hours).
@@ -47,6 +48,8 @@ def _json_default(value: Any) -> Any:
     if isinstance(value, BaseModel):
         return value.model_dump(mode="json", exclude_unset=True)
     raise TypeError(type(value).__name__)
+#: families whose systemic use always shows the readiness caution (gadolinium: issue 13, ACR Manual)
+_READINESS_FAMILIES = (m.Family.iodinated, m.Family.oil, m.Family.gadolinium)
 
 
 def parse_case(data: Any) -> m.Case:
@@ -269,7 +272,7 @@ def decide(case: Any, knowledge: Knowledge) -> m.Decision:
              for index, role in enumerate(exam.roles)]
     apply_case_rules(k, exam, base, raised)
     decision = assemble(case, k, exam, roles, kidney_function, raised)
-    return add_plans(case, k, decision)
+    return department.department_stage(case, k, add_plans(case, k, decision))
 
 
 def request_targets(case: m.Case, k: Knowledge, exam: m.Exam) -> set[int]:
@@ -293,7 +296,7 @@ def check_references(case: m.Case, k: Knowledge) -> m.Exam:
         raise CaseError(field="agent", value=case.agent, problem="is not a known agent",
                         suggestion=suggest(case.agent, k.agents), allowed="the ids of `contrast-aid agents`")
     if case.agent is not None:
-        possible = sorted({a.id for role in exam.roles for a in k.compatible[role.route]})
+        possible = sorted({a.id for i in range(len(exam.roles)) for a, _, _ in k.candidates[(exam.id, i)]})
         if case.agent not in possible:
             allowed = ", ".join(possible) if possible else "none (this exam uses no contrast)"
             raise CaseError(field="agent", value=case.agent, problem=f"cannot be given in any role of {exam.id}",
@@ -448,9 +451,9 @@ def score_role(case: m.Case, k: Knowledge, exam: m.Exam, index: int, role: m.Exa
         if reactions:
             facts.update(_history_facts(reactions, agent))
         scored.append(score_agent(k, agent, facts, candidate_rules, pref))
-    scored.sort(key=lambda s: s.order)
+    scored = department.rank_options(k, exam, role, scored)  # verdict, then formulary and preferred agent
     requested = case.agent in {s.agent.id for s in scored}
-    chosen_id = choose(case, role, scored, raised)
+    chosen_id = department.stocked_choice(k, case, role, scored, choose(case, role, scored, raised))
     refused = requested and chosen_id is None
     options = []
     for rank, s in enumerate(scored, start=1):
@@ -477,7 +480,7 @@ def score_role(case: m.Case, k: Knowledge, exam: m.Exam, index: int, role: m.Exa
 def raise_flags(raised: _Raised, s: _Scored, role: m.ExamRole) -> None:
     """An option in the plan raises its rules' flags and cautions for the whole decision."""
     raised.flags |= s.flags
-    raised.systemic_iodinated |= s.agent.family in (m.Family.iodinated, m.Family.oil) and role.route in _SYSTEMIC
+    raised.systemic_iodinated |= s.agent.family in _READINESS_FAMILIES and role.route in _SYSTEMIC
     for text in s.lifted:
         raised.caution(text)
 

@@ -21,7 +21,6 @@ their edge); with no ``as_of`` the time left before the exam is not checked, and
 
 from __future__ import annotations
 
-import datetime as dt
 import math
 from typing import Any
 
@@ -31,6 +30,7 @@ from ..calculators import body, dose as dose_calc, freshness, hydration, kidney,
 from ..calculators import paediatric
 from ..errors import CaseError, ContrastAidError, RangeError
 from ..tables.constants import METFORMIN_HOLD_HOURS, VISCOUS_FLOW_ML_S, VISCOUS_MPAS_37C
+from .agent_doses import plan_agent_doses  # gadolinium and microbubble doses (issue 13)
 
 
 
@@ -249,6 +249,7 @@ def add_plans(case: m.Case, knowledge: Any, decision: m.Decision) -> m.Decision:
 def _add_plans(case: m.Case, k: Any, decision: m.Decision) -> m.Decision:
     exam = k.exams[decision.exam]
     roles, doses, iodinated_intravascular = plan_doses(case, k, exam, decision)
+    roles = plan_agent_doses(case, k, exam, roles)
     catheter = any(r.catheter_study and r.route in m.INTRAVASCULAR for r in exam.roles)
     renal = plan_renal(case, k, decision.renal, doses, iodinated_intravascular, catheter)
     premed = plan_premedication(case, k, decision.premedication)

@@ -52,6 +52,8 @@ FLAGS: dict[str, str] = {
     "deep_biopsy": "recent_deep_biopsy",
     "bowel_fistula": "bowel_fistula_suspected",
     "high_grade": "obstruction_high_grade",
+    "peg_allergy": "peg_allergy",  # issue 13
+    "cardiopulmonary": "unstable_cardiopulmonary",  # issue 13
 }
 
 #: the value of a reaction's fifth part that marks a breakthrough reaction (despite premedication)

@@ -38,7 +38,23 @@ def agent_kind(agent: m.Agent) -> str:
         if agent.ionicity is not None:
             osm += " " + agent.ionicity.value.replace("_", "-")
         parts.append(osm)
+    parts += _mr_us_kind(agent)
     return " · ".join(parts)
+
+
+def _mr_us_kind(agent: m.Agent) -> list[str]:
+    """'macrocyclic non-ionic, ACR group II' for gadolinium agents; the MRI signal of luminal agents (issue 13)."""
+    parts = []
+    if agent.gbca_structure is not None:
+        ion = f" {agent.ionicity.value.replace('_', '-')}" if agent.ionicity else ""
+        parts.append(agent.gbca_structure.value + ion)
+    if agent.gbca_group is not None:
+        parts.append(f"ACR group {agent.gbca_group.value}")
+    if agent.hepatobiliary is not None and agent.hepatobiliary is not m.Hepatobiliary.none:
+        parts.append(f"hepatobiliary ({agent.hepatobiliary.value})")
+    if agent.mri_signal is not None:
+        parts.append(f"MRI {agent.mri_signal.value}")
+    return parts
 
 
 def _hours(h: float) -> str:
@@ -134,6 +150,9 @@ def timeline(decision: m.Decision, knowledge: Knowledge, scheduled_at: dt.dateti
 # --------------------------------------------------------------------------------------------------
 def dose_lines(decision: m.Decision, role_index: int, exam: m.Exam) -> list[str]:
     """The dose plan of a role in words (dose, IV access, cautions), or its exam protocol."""
+    agent_dose = getattr(decision.roles[role_index], "agent_dose", None)
+    if agent_dose is not None:
+        return agent_dose_lines(agent_dose)
     dose = getattr(decision.roles[role_index], "dose", None)
     if dose is not None:
         fields = (("volume_ml", "{:g} mL"), ("concentration_mg_i_ml", "{:g} mg I/mL"), ("iodine_g", "{:g} g I"),
@@ -163,10 +182,45 @@ def dose_lines(decision: m.Decision, role_index: int, exam: m.Exam) -> list[str]
     if p.fixed_volume_ml:
         parts.append(f"{p.fixed_volume_ml:g} mL fixed")
     parts.append(f"at most {p.max_volume_ml:g} mL")
-    parts.append(f"{p.flow_ml_s:g} mL/s")
+    if p.flow_ml_s is not None:
+        parts.append(f"{p.flow_ml_s:g} mL/s")
     if p.concentration_mg_i_ml:
         parts.append(f"{p.concentration_mg_i_ml:g} mg I/mL")
     return ["Exam protocol: " + ", ".join(parts) + f" ({p.certainty.value.replace('_', ' ')})"]
+
+
+def agent_dose_lines(d: m.AgentDoseBlock) -> list[str]:
+    """A gadolinium or microbubble dose in words: mmol and mL, rate, access, cautions (issue 13).
+
+    >>> d = m.AgentDoseBlock(agent="gadobutrol", family=m.Family.gadolinium, concentration_mmol_ml=1.0,
+    ...     dose_mmol_kg=0.1, dose_mmol=7.0, volume_ml=7.0, volume_ml_per_kg=0.1, flow_ml_s=2.0, duration_s=3.5,
+    ...     basis="0.1 mmol/kg (labelled standard dose)", certainty=m.Certainty.verified)
+    >>> agent_dose_lines(d)[0]
+    'Dose: 7 mmol gadolinium = 7 mL of 1 mmol/mL (0.1 mmol/kg, 0.1 mL/kg), 2 mL/s, 4 s (0.1 mmol/kg (labelled standard dose); verified)'
+    """
+    parts = []
+    if d.dose_mmol is not None:
+        parts.append(f"{d.dose_mmol:g} mmol gadolinium")
+    if d.volume_ml is not None:
+        vol = f"{d.volume_ml:g} mL"
+        if d.concentration_mmol_ml is not None:
+            vol += f" of {d.concentration_mmol_ml:g} mmol/mL"
+        parts.append(("= " if parts else "") + vol)
+    elif d.concentration_mmol_ml is not None:
+        parts.append(f"{d.concentration_mmol_ml:g} mmol/mL")
+    per = [f"{d.dose_mmol_kg:g} mmol/kg" if d.dose_mmol_kg is not None else None,
+           f"{d.volume_ml_per_kg:g} mL/kg" if d.volume_ml_per_kg is not None else None]
+    per = [x for x in per if x]
+    head = " ".join(parts) + (f" ({', '.join(per)})" if per and parts else ", ".join(per) if per else "")
+    extra = [f"{d.flow_ml_s:g} mL/s" if d.flow_ml_s is not None else None,
+             f"{d.duration_s:.0f} s" if d.duration_s is not None else None]
+    head = ", ".join([x for x in [head.strip()] + extra if x])
+    lines = [f"Dose: {head} ({d.basis}; {d.certainty.value.replace('_', ' ')})" if head else
+             f"Dose: {d.basis} ({d.certainty.value.replace('_', ' ')})"]
+    if d.access_message:
+        lines.append(f"IV access: {'' if d.access_ok is not False else 'NOT FIT - '}{d.access_message}")
+    lines += [f"Dose caution: {w}" for w in d.warnings if not w.startswith("IV access not fit")]
+    return lines
 
 
 def regimen_line(decision: m.Decision, knowledge: Knowledge) -> str | None:

@@ -91,6 +91,17 @@ _add("history.delayed_same_family", "enum", "Worst delayed (mostly skin) reactio
 _add("history.breakthrough_same_family", "bool",
      "An allergic-like reaction to this agent's family happened despite premedication", scope="agent")
 
+# ---- MRI and ultrasound (issue 13) ----
+_add("policy.gbca_group_ii_egfr_screening", "bool", "Policy: ask for an eGFR before group II gadolinium agents")
+_add("policy.gbca_low_egfr_precautions", "bool", "Policy: group II/III gadolinium with low eGFR as a precaution")
+_add("policy.gbca_linear_iv_restricted", "bool", "Policy: EMA 2017 restriction of intravenous linear gadolinium agents")
+_add("agent.gbca_group", "enum", "ACR Manual NSF group of a gadolinium agent (I, II, III)", _enum(m.GbcaGroup), "agent")
+_add("agent.gbca_structure", "enum", "Gadolinium chelate structure", _enum(m.GbcaStructure), "agent")
+_add("agent.hepatobiliary", "enum", "Hepatobiliary uptake of a gadolinium agent", _enum(m.Hepatobiliary), "agent")
+_add("agent.mri_signal", "enum", "Effect of a luminal MRI agent on signal", _enum(m.MriSignal), "agent")
+_add("agent.excipients", "list", "Excipients that matter for hypersensitivity (e.g. polyethylene glycol)",
+     scope="agent")
+
 
 def catalogue_rows() -> list[dict[str, Any]]:
     """The catalogue as rows, for documentation and the knowledge browser."""

@@ -18,6 +18,7 @@ from pydantic import ValidationError
 
 from . import models as m
 from .conditions import Compiled, compile_condition, compile_partial
+from . import overlay as ov_mod
 from ..errors import KnowledgeError
 from .validation import describe, error_from
 
@@ -57,6 +58,10 @@ class Knowledge:
     agent_rules: list[CompiledRule] = field(default_factory=list)
     case_rules: list[CompiledRule] = field(default_factory=list)
     regimens: dict[str, m.Regimen] = field(default_factory=dict)
+    #: a department overlay (formulary, preferred agents, codes, on-call line), if the policy file is one
+    overlay: ov_mod.Overlay | None = None
+    #: the bundled profile the overlay starts from (its Policy), for ``policy check`` and ``policy diff``
+    base_policy: m.Policy | None = None
 
     def cite(self, refs: list[m.SourceRef], certainty: m.Certainty) -> str:
         """Sources as shown to users: 'title, issuer year, section; ...' or the certainty words."""
@@ -196,8 +201,26 @@ def _unique(rows: list, name: str, key: str = "id") -> None:
 
 
 def load_policy(path: Path | str | None = None) -> tuple[m.Policy, bytes]:
+    """A plain policy or a department overlay merged onto its base, and the bytes its hash is taken of."""
+    pol, blob, _overlay, _base = load_policy_file(path)
+    return pol, blob
+
+
+def load_policy_file(path: Path | str | None = None) -> tuple[m.Policy, bytes, Any, m.Policy | None]:
+    """(policy, bytes hashed, overlay or None, base policy or None). An overlay's hash covers its base."""
     p = Path(path) if path else DEFAULT_POLICY
     raw, blob = _read_yaml(p)
+    if ov_mod.is_overlay(raw):
+        overlay = ov_mod.parse_overlay(raw, p.name)
+        base, base_blob = _plain_policy(DATA_DIR / "policies" / f"{overlay.base}.yaml")
+        return ov_mod.merge_policy(base, overlay, p.name), blob + b"\0" + base_blob, overlay, base
+    pol, blob = _plain_policy(p, raw, blob)
+    return pol, blob, None, None
+
+
+def _plain_policy(p: Path, raw: Any = None, blob: bytes | None = None) -> tuple[m.Policy, bytes]:
+    if blob is None:
+        raw, blob = _read_yaml(p)
     if not isinstance(raw, dict):
         raise KnowledgeError(f"{p.name}: a policy file must hold one mapping of settings")
     try:
@@ -217,9 +240,9 @@ def load_knowledge(data_dir: Path | str | None = None, policy: Path | str | m.Po
         raw[name] = data
         digest.update(name.encode() + b"\0" + blob + b"\0")
     if isinstance(policy, m.Policy):  # an already validated policy object (tests sweep thresholds this way)
-        pol, pol_blob = policy, policy.model_dump_json().encode("utf-8")
+        pol, pol_blob, overlay, base_policy = policy, policy.model_dump_json().encode("utf-8"), None, None
     else:
-        pol, pol_blob = load_policy(policy)
+        pol, pol_blob, overlay, base_policy = load_policy_file(policy)
 
     models = {
         "sources": m.Source,
@@ -245,6 +268,10 @@ def load_knowledge(data_dir: Path | str | None = None, policy: Path | str | m.Po
     k.exams = {e.id: e for e in tables.exams}
     k.rules = {r.id: r for r in tables.rules}
     k.regimens = {r.id: r for r in pol.regimens}
+    if overlay is not None:  # department overlay: check its references, keep only the strengths held
+        ov_mod.check_overlay(overlay, k.agents, k.exams, Path(policy).name)
+        k.overlay, k.base_policy = overlay, base_policy
+        k.agents = {aid: ov_mod.held_strengths(overlay, a) for aid, a in k.agents.items()}
     _check_references(k)
     _build_compatibility(k)
     _check_exam_roles(k)
@@ -269,6 +296,9 @@ def exam_facts(exam: m.Exam, policy: m.Policy) -> dict[str, Any]:
         "exam.tags": tuple(exam.tags),
         "exam.has_intravascular_role": any(r.route in m.INTRAVASCULAR for r in exam.roles),
         "policy.metformin_hold_first_pass": policy.metformin_hold_first_pass,
+        "policy.gbca_group_ii_egfr_screening": policy.gbca_group_ii_egfr_screening,
+        "policy.gbca_linear_iv_restricted": policy.gbca_linear_iv_restricted,
+        "policy.gbca_low_egfr_precautions": policy.gbca_low_egfr_precautions,
     }
 
 
@@ -289,7 +319,26 @@ def static_facts(exam: m.Exam, role: m.ExamRole, agent: m.Agent, policy: m.Polic
         "agent.ionicity": agent.ionicity.value if agent.ionicity else None,
         "agent.labelled_for_route": role.route in agent.routes,
         "agent.usual_for_role": agent.id in role.agents,
+        **_mr_us_agent_facts(agent),
     }
+
+
+def _mr_us_agent_facts(agent: m.Agent) -> dict[str, Any]:
+    """The gadolinium and microbubble agent facts (issue 13); None where they do not apply."""
+    return {
+        "agent.gbca_group": agent.gbca_group.value if agent.gbca_group else None,
+        "agent.gbca_structure": agent.gbca_structure.value if agent.gbca_structure else None,
+        "agent.hepatobiliary": agent.hepatobiliary.value if agent.hepatobiliary else None,
+        "agent.mri_signal": agent.mri_signal.value if agent.mri_signal else None,
+        "agent.excipients": tuple(agent.excipients),
+    }
+
+
+def exam_agents(k: "Knowledge", exam: m.Exam, role: m.ExamRole) -> list[m.Agent]:
+    """The agents that could be given in a role: route-compatible (routes.yaml) and imaging in the exam's
+    modality (an MRI exam is not offered iodinated agents, nor a CT exam gadolinium; issue 13)."""
+    modality = exam.modality.value
+    return [a for a in k.compatible[role.route] if modality in a.imaging_modalities()]
 
 
 def _build_candidates(k: Knowledge) -> None:
@@ -300,7 +349,7 @@ def _build_candidates(k: Knowledge) -> None:
     for exam in k.tables.exams:
         for i, role in enumerate(exam.roles):
             rows = []
-            for agent in k.compatible[role.route]:
+            for agent in exam_agents(k, exam, role):
                 facts = static_facts(exam, role, agent, k.policy)
                 rules = [cr for cr, test in partial if test(facts) is not False]
                 rows.append((agent, facts, rules))
@@ -344,12 +393,21 @@ def _check_references(k: Knowledge) -> None:
                 _ref_ok(k, [c.source], f"agents.yaml: agent {a.id}")
         if a.family is m.Family.iodinated and any(c.unit is not m.Unit.mg_i_per_ml for c in a.concentrations):
             raise KnowledgeError(f"agents.yaml: agent {a.id}: iodinated strengths must be in mg_i_per_ml")
+        gd = a.family is m.Family.gadolinium
+        if any((c.unit is m.Unit.mmol_per_ml) != gd for c in a.concentrations):
+            raise KnowledgeError(f"agents.yaml: agent {a.id}: strengths in mmol_per_ml are for gadolinium agents, "
+                                 "and gadolinium strengths must be in mmol_per_ml")
+        if a.dose_source:
+            _ref_ok(k, [a.dose_source], f"agents.yaml: agent {a.id}")
     for r in k.tables.rules:
         _ref_ok(k, r.sources, f"rules.yaml: rule {r.id}")
     for e in k.tables.exams:
         for role in e.roles:
             if role.protocol and role.protocol.source:
                 _ref_ok(k, [role.protocol.source], f"exams.yaml: exam {e.id}")
+            if role.protocol and role.protocol.for_agent and role.protocol.for_agent not in role.agents:
+                raise KnowledgeError(f"exams.yaml: exam {e.id}: protocol for_agent {role.protocol.for_agent!r} is "
+                                     f"not one of the role's agents; allowed: {', '.join(role.agents)}")
     _ref_ok(k, k.policy.based_on, f"policy {k.policy.id}")
     for reg in k.policy.regimens:
         _ref_ok(k, [reg.source], f"policy {k.policy.id}: regimen {reg.id}")
@@ -390,6 +448,7 @@ def _check_exam_roles(k: Knowledge) -> None:
             if not role.agents:
                 raise KnowledgeError(f"{where}: agents must list at least one agent")
             compat = {a.id for a in k.compatible[role.route]}
+            here = {a.id for a in exam_agents(k, e, role)}
             for aid in role.agents:
                 if aid not in k.agents:
                     raise KnowledgeError(f"{where}: unknown agent {aid!r}; see `contrast-aid agents`")
@@ -397,3 +456,7 @@ def _check_exam_roles(k: Knowledge) -> None:
                     raise KnowledgeError(
                         f"{where}: agent {aid} cannot be given by route {role.route.value} (routes.yaml)"
                     )
+                if aid not in here:
+                    raise KnowledgeError(
+                        f"{where}: agent {aid} does not image in {e.modality.value}; it images in "
+                        f"{', '.join(k.agents[aid].imaging_modalities())}")

@@ -70,6 +70,8 @@ class Family(str, Enum):
     barium = "barium"
     iodinated = "iodinated"
     oil = "oil"
+    gadolinium = "gadolinium"  # MRI: gadolinium-based agents (issue 13)
+    microbubble = "microbubble"  # ultrasound: gas microbubbles or microspheres (issue 13)
 
 
 class Form(str, Enum):
@@ -80,6 +82,7 @@ class Form(str, Enum):
     suspension = "suspension"
     paste = "paste"
     oil = "oil"
+    microbubble_suspension = "microbubble_suspension"  # ultrasound agents, made up before use (issue 13)
 
 
 class OsmolalityClass(str, Enum):
@@ -102,6 +105,8 @@ class Route(str, Enum):
     retrograde = "retrograde"
     intracavitary = "intracavitary"
     insufflation = "insufflation"
+    intra_articular = "intra_articular"  # direct MR arthrography (issue 13)
+    intravesical = "intravesical"  # contrast-enhanced voiding urosonography (issue 13)
 
 
 INTRAVASCULAR = frozenset({Route.intravenous, Route.intra_arterial})
@@ -111,6 +116,8 @@ class Modality(str, Enum):
     fluoroscopy = "fluoroscopy"
     angiography = "angiography"
     ct = "ct"
+    mri = "mri"  # issue 13
+    ultrasound = "ultrasound"  # issue 13
 
 
 class ContrastUse(str, Enum):
@@ -150,6 +157,7 @@ class Unit(str, Enum):
     mg_i_per_ml = "mg_i_per_ml"
     percent_w_v = "percent_w_v"
     percent_w_w = "percent_w_w"
+    mmol_per_ml = "mmol_per_ml"  # gadolinium agents (issue 13)
 
 
 class RenalExposure(str, Enum):
@@ -217,6 +225,43 @@ class Scope(str, Enum):
     case = "case"
 
 
+# ---- MRI and ultrasound (issue 13) ----------------------------------------------------------------
+class GbcaStructure(str, Enum):
+    """Molecular structure of a gadolinium chelate (FDA 2017 class warning; EMA 2017 decision)."""
+
+    macrocyclic = "macrocyclic"
+    linear = "linear"
+
+
+class GbcaGroup(str, Enum):
+    """ACR Manual on Contrast Media grouping of gadolinium agents by nephrogenic systemic fibrosis risk."""
+
+    I = "I"  # noqa: E741 - the ACR's own group name
+    II = "II"
+    III = "III"
+
+
+class Hepatobiliary(str, Enum):
+    """How much of a gadolinium agent the liver takes up and excretes into bile."""
+
+    none = "none"
+    minor = "minor"
+    major = "major"
+
+
+class MriSignal(str, Enum):
+    """Effect of a luminal agent on MRI signal: dark on T1 and T2, bright on T1 and T2, or dark on T1 and
+    bright on T2 (biphasic, the 'neutral' distending agents)."""
+
+    negative = "negative"
+    positive = "positive"
+    biphasic = "biphasic"
+
+
+#: Modalities an agent images in when its record names none: by family (issue 13).
+XRAY_MODALITIES = ("fluoroscopy", "angiography", "ct")
+
+
 # --------------------------------------------------------------------------------------------------
 # Knowledge tables
 # --------------------------------------------------------------------------------------------------
@@ -267,14 +312,45 @@ class Agent(Strict):
     notes: str = Field("", description="Short remarks shown in the knowledge browser")
     sources: list[SourceRef] = Field(default_factory=list, description="Where the route and class facts come from")
     certainty: Certainty = Field(Certainty.verified, description="How the agent facts are known")
+    # ---- MRI and ultrasound (issue 13) ----
+    modalities: list[Modality] | None = Field(
+        None, description="Modalities the agent images in; default by family (gadolinium: mri; microbubble: "
+                          "ultrasound; the others: fluoroscopy, angiography, ct)")
+    gbca_structure: GbcaStructure | None = Field(None, description="For gadolinium agents: macrocyclic or linear")
+    gbca_group: GbcaGroup | None = Field(
+        None, description="For intravenous gadolinium agents: ACR Manual NSF group I, II or III")
+    relaxivity: Literal["standard", "high"] | None = Field(
+        None, description="For gadolinium agents: relaxivity class where it changes the dose")
+    hepatobiliary: Hepatobiliary | None = Field(
+        None, description="For gadolinium agents: hepatobiliary uptake (none, minor, major)")
+    standard_dose_mmol_kg: float | None = Field(
+        None, description="For intravenous gadolinium agents: standard single dose, mmol/kg", gt=0, le=0.3)
+    standard_dose_ml_kg: float | None = Field(
+        None, description="The same dose as volume, mL/kg (checked against the intravenous strength)", gt=0, le=1)
+    dose_certainty: Certainty | None = Field(None, description="How the standard dose and strength are known")
+    dose_source: SourceRef | None = Field(None, description="Where the standard dose comes from, if verified")
+    mri_signal: MriSignal | None = Field(None, description="For luminal MRI agents: negative, positive or biphasic")
+    excipients: list[str] = Field(
+        default_factory=list, description="Excipients that matter for hypersensitivity, e.g. 'polyethylene glycol'")
+
+    def imaging_modalities(self) -> tuple[str, ...]:
+        """The modalities this agent images in (its ``modalities``, else by family)."""
+        if self.modalities is not None:
+            return tuple(x.value for x in self.modalities)
+        if self.family is Family.gadolinium:
+            return (Modality.mri.value,)
+        if self.family is Family.microbubble:
+            return (Modality.ultrasound.value,)
+        return XRAY_MODALITIES
 
     @model_validator(mode="after")
     def _iodinated_fields(self) -> "Agent":
         if self.family is Family.iodinated:
             if self.osmolality_class is None or self.ionicity is None:
                 raise ValueError(f"agent {self.id}: iodinated agents need osmolality_class and ionicity")
-        elif self.osmolality_class is not None or self.ionicity is not None:
-            raise ValueError(f"agent {self.id}: osmolality_class and ionicity are for iodinated agents only")
+        elif self.osmolality_class is not None or (self.ionicity is not None and self.family is not Family.gadolinium):
+            raise ValueError(f"agent {self.id}: osmolality_class is for iodinated agents only, ionicity for "
+                             "iodinated and gadolinium agents")
         if not self.routes:
             raise ValueError(f"agent {self.id}: routes must list at least one route")
         if self.intrathecal_strengths:
@@ -283,6 +359,34 @@ class Agent(Strict):
             if odd or Route.intrathecal not in self.routes:
                 raise ValueError(f"agent {self.id}: intrathecal_strengths must be strengths of the agent and its "
                                  f"routes must include intrathecal; got {odd or self.intrathecal_strengths}")
+        return self
+
+    @model_validator(mode="after")
+    def _gadolinium_fields(self) -> "Agent":
+        """Gadolinium fields only on gadolinium agents; an intravenous one needs all of them, and its standard
+        dose in mL/kg must equal the dose in mmol/kg over its intravenous strength (within 2 %)."""
+        gd_only = ("gbca_structure", "gbca_group", "relaxivity", "hepatobiliary", "standard_dose_mmol_kg",
+                   "standard_dose_ml_kg")
+        if self.family is not Family.gadolinium:
+            given = [f for f in gd_only if getattr(self, f) is not None]
+            if given:
+                raise ValueError(f"agent {self.id}: {', '.join(given)} are for gadolinium agents only")
+            return self
+        if Route.intravenous not in self.routes:
+            return self
+        missing = [f for f in ("gbca_structure", "gbca_group", "ionicity", "hepatobiliary", "standard_dose_mmol_kg",
+                               "standard_dose_ml_kg") if getattr(self, f) is None]
+        if missing:
+            raise ValueError(f"agent {self.id}: intravenous gadolinium agents need {', '.join(missing)}")
+        iv = [c for c in self.concentrations if c.unit is Unit.mmol_per_ml and c.value >= 0.1]
+        if not iv:
+            raise ValueError(f"agent {self.id}: intravenous gadolinium agents need a strength of at least "
+                             "0.1 mmol_per_ml")
+        implied = self.standard_dose_mmol_kg / max(c.value for c in iv)
+        if abs(implied - self.standard_dose_ml_kg) > 0.02 * implied:
+            raise ValueError(f"agent {self.id}: standard_dose_ml_kg {self.standard_dose_ml_kg:g} does not match "
+                             f"{self.standard_dose_mmol_kg:g} mmol/kg at {max(c.value for c in iv):g} mmol/mL "
+                             f"({implied:.3g} mL/kg)")
         return self
 
 
@@ -316,7 +420,8 @@ class DoseProtocol(Strict):
     iodine_g_per_kg: float | None = Field(None, description="Weight-based iodine dose, g I per kg", gt=0, le=1.5)
     fixed_volume_ml: float | None = Field(None, description="Fixed protocol volume, mL", gt=0, le=300)
     max_volume_ml: float = Field(150, description="Cap on the volume, mL", gt=0, le=300)
-    flow_ml_s: float = Field(description="Planned injection rate, mL/s", gt=0, le=10)
+    flow_ml_s: float | None = Field(
+        None, description="Planned injection rate, mL/s (null: hand bolus with no set rate)", gt=0, le=10)
     scan_duration_s: float | None = Field(
         None, description="For angiographic CT: scan duration, s (volume = flow · (duration + offset))", gt=0
     )
@@ -325,6 +430,13 @@ class DoseProtocol(Strict):
     iodine_delivery_rate_g_s: float | None = Field(
         None, description="Iodine delivery rate target, g I/s (CT angiography): the strength whose rate at the planned "
                           "flow is nearest to it is chosen", gt=0, le=4)
+    gadolinium_mmol_per_kg: float | None = Field(
+        None, description="Gadolinium dose, mmol/kg (default: the agent's standard dose; issue 13)", gt=0, le=0.3)
+    volume_ml_per_kg: float | None = Field(
+        None, description="Weight-based volume for agents dosed by volume (microbubbles), mL/kg", gt=0, le=1)
+    for_agent: str | None = Field(
+        None, description="The agent the volume figures are for (microbubbles: each agent has its own label "
+                          "dose); another chosen agent gets no worked volume")
     certainty: Certainty = Field(Certainty.common_practice, description="How the protocol figures are known")
     source: SourceRef | None = Field(None, description="Source of the protocol figures, if any")
     paediatric: PaediatricProtocol | None = Field(
@@ -343,9 +455,9 @@ class ExamRole(Strict):
 
 
 class Exam(Strict):
-    id: str = Field(description="Stable key", pattern=r"^(fluoro|angio|ct)-[a-z0-9-]+$")
+    id: str = Field(description="Stable key", pattern=r"^(fluoro|angio|ct|mr|us)-[a-z0-9-]+$")
     name: str = Field(description="Name shown to users")
-    modality: Modality = Field(description="fluoroscopy, angiography or ct")
+    modality: Modality = Field(description="fluoroscopy, angiography, ct, mri or ultrasound")
     region: str = Field(description="Body region")
     purpose: str = Field(description="What the exam answers")
     contrast: ContrastUse = Field(description="Whether contrast is required, optional or not used")
@@ -554,6 +666,20 @@ class Policy(Strict):
         6.0, description="Hours of hydration after contrast (ACR-NKF 2020: 3-12 h; 6 h is common practice)",
         ge=0, le=12
     )
+    # ---- MRI and ultrasound (issue 13): defaults keep older policy files loading ----
+    gbca_nsf_egfr_below: float = Field(
+        30, description="eGFR below which a patient is at risk of NSF from gadolinium (ACR Manual; ESUR: 30)",
+        ge=0, le=120)
+    gbca_low_egfr_precautions: bool = Field(
+        False, description="Treat group II and III gadolinium agents with eGFR below gbca_nsf_egfr_below, AKI or "
+                           "dialysis as 'with precautions' (European wording, ESUR; North American: ACR-NKF 2021 "
+                           "says withholding a needed dose is likely to harm more)")
+    gbca_group_ii_egfr_screening: bool = Field(
+        False, description="Ask for an eGFR before group II gadolinium agents (North American profile: not "
+                           "required, ACR-NKF 2021; a European profile may screen every patient)")
+    gbca_linear_iv_restricted: bool = Field(
+        False, description="EMA 2017 decision: intravenous linear gadolinium agents suspended, except the "
+                           "hepatobiliary ones for liver imaging")
 
     @model_validator(mode="after")
     def _thresholds_in_order(self) -> "Policy":
@@ -656,6 +782,10 @@ class Patient(Strict):
     )
     diabetes: bool = Field(False, description="Diabetes mellitus treated with insulin or other prescribed drugs")
     iv_access: IVAccess | None = Field(None, description="The planned IV catheter")
+    # ---- MRI and ultrasound (issue 13) ----
+    peg_allergy: bool = Field(False, description="Known hypersensitivity to polyethylene glycol (PEG, macrogol)")
+    unstable_cardiopulmonary: bool = Field(
+        False, description="Pulmonary hypertension or an unstable cardiopulmonary condition")
 
 
 class Case(Strict):
@@ -704,6 +834,8 @@ class Option(Strict):
                     "earlier reaction; no option of the role is chosen when none qualifies (see the alerts)")
     reasons: list[Reason]
     actions: list[str]
+    stocked: bool | None = Field(None, description="In the department formulary (null: no formulary in the policy)")
+    local_label: str | None = Field(None, description="The department's display label of a stocked agent")
 
 
 class Viscosity(Strict):
@@ -741,6 +873,26 @@ class DoseBlock(Strict):
     hand_injection: bool = Field(False, description="Inject by hand (small cannula or line not rated for power)")
 
 
+class AgentDoseBlock(Strict):
+    """The worked dose of a gadolinium or microbubble role (``knowledge/decision/agent_doses.py``, issue 13)."""
+
+    agent: str = Field(description="Id of the chosen agent the dose is for")
+    family: Family = Field(description="gadolinium or microbubble")
+    concentration_mmol_ml: float | None = Field(None, description="Strength used, mmol/mL (gadolinium)")
+    dose_mmol_kg: float | None = Field(None, description="Dose, mmol/kg (gadolinium)")
+    dose_mmol: float | None = Field(None, description="Amount of gadolinium, mmol")
+    volume_ml: float | None = Field(description="Volume to give, mL (null when it cannot be worked out)")
+    volume_ml_per_kg: float | None = Field(None, description="Volume per kg, mL/kg")
+    basis: str = Field(description="Where the dose comes from")
+    flow_ml_s: float | None = Field(None, description="Injection rate, mL/s (null: hand bolus, no set rate)")
+    duration_s: float | None = Field(None, description="Injection duration, s")
+    access_ok: bool | None = Field(None, description="The IV catheter fits the flow (null: not checked)")
+    access_message: str | None = Field(None, description="Why the access is or is not fit")
+    certainty: Certainty = Field(description="How the dose figures are known")
+    source: str | None = Field(None, description="Where the dose figures come from")
+    warnings: list[str] = Field(default_factory=list, description="Missing weight and other cautions")
+
+
 class RoleDecision(Strict):
     route: Route
     purpose: str
@@ -750,6 +902,8 @@ class RoleDecision(Strict):
         None, description="Worked dose of the chosen agent, for intravascular and intrathecal roles with an "
                           "iodinated choice (none when no agent is chosen)"
     )
+    agent_dose: AgentDoseBlock | None = Field(
+        None, description="Worked dose of the chosen agent, for gadolinium and microbubble roles (issue 13)")
 
 
 class DoseLimits(Strict):
@@ -866,3 +1020,7 @@ class Decision(Strict):
     policy: str
     knowledge_version: str
     as_of: LocalDateTime | None = Field(None, description="The 'now' the times were worked out for (the case's as_of)")
+    as_of: dt.datetime | None = Field(None, description="The 'now' the times were worked out for (the case's as_of)")
+    policy_version: str | None = Field(
+        None, description="Hash of the policy file (of an overlay and its base profile), to reproduce the decision")
+    on_call: str | None = Field(None, description="The department's on-call radiologist contact line, if any")
