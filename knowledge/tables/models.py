@@ -1020,7 +1020,6 @@ class Decision(Strict):
     policy: str
     knowledge_version: str
     as_of: LocalDateTime | None = Field(None, description="The 'now' the times were worked out for (the case's as_of)")
-    as_of: dt.datetime | None = Field(None, description="The 'now' the times were worked out for (the case's as_of)")
     policy_version: str | None = Field(
         None, description="Hash of the policy file (of an overlay and its base profile), to reproduce the decision")
     on_call: str | None = Field(None, description="The department's on-call radiologist contact line, if any")

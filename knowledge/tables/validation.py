@@ -127,6 +127,18 @@ def error_from(exc: ValidationError, model: type[BaseModel], cls: type[ContrastA
                suggestion=parts.get("suggestion"))
 
 
+def first_error_parts(exc: ValidationError, model: type[BaseModel]) -> dict[str, Any]:
+    """The structured parts (field, value, problem, allowed, suggestion) of the first error of ``exc``."""
+    return _one(model, exc.errors(include_url=False)[0], "")
+
+
+def line_from_parts(parts: dict[str, Any], field: str | None) -> str:
+    """The one-line message of ``parts`` under another field name (e.g. a worklist column)."""
+    if "message" in parts:
+        return _line(parts)
+    return line(field, parts["problem"], parts.get("value", NO_VALUE), parts.get("allowed"), parts.get("suggestion"))
+
+
 def problems(exc: ValidationError, model: type[BaseModel]) -> list[tuple[str, str]]:
     """Every error of ``exc`` as (dotted field, one-line message)."""
     return [(dotted(clean_loc(err["loc"])), _line(_one(model, err, ""))) for err in exc.errors(include_url=False)]
