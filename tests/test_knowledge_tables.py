@@ -125,7 +125,8 @@ def _error(data_dir) -> str:
 def test_unknown_fact_is_rejected(tmp_path):
     d = _broken(tmp_path, "rules", lambda rows: _rule(rows, "barium-perforation")["when"]["all"][0].update(
         fact="patient.perfortion_suspected"))
-    assert _error(d) == ("rules.yaml: rule barium-perforation: unknown fact 'patient.perfortion_suspected'; "
+    assert _error(d) == ("rules.yaml: rule barium-perforation: unknown fact 'patient.perfortion_suspected' "
+                         "(did you mean patient.perforation_suspected?); "
                          "see `contrast-aid knowledge facts` for the catalogue")
 
 

@@ -231,8 +231,8 @@ def test_no_creatinine_required_without_risk_factors(k):
 
 def test_creatinine_after_exam_is_an_error(k):
     with pytest.raises(RangeError) as e:
-        decide(_case(exam="ct-abdomen-pelvis", scheduled_at="2025-03-10T15:00:00",
-                       patient={"age_years": 65, "sex": "male",
+        decide(_case(exam="ct-abdomen-pelvis", scheduled_at="2025-03-10T15:00:00", as_of=None,  # no "now":
+                       patient={"age_years": 65, "sex": "male",  # a sample after "now" is refused first
                                 "creatinine": {"value": 1.0, "unit": "mg/dL", "measured_on": "2025-03-11"}}), k)
     assert str(e.value) == ("patient.creatinine.measured_on: 2025-03-11 is after the exam time "
                             "2025-03-10T15:00:00; allowed: a sample taken before the exam")

@@ -12,7 +12,7 @@ import base64
 import pytest
 
 from knowledge.tables import models as m
-from knowledge.decision.engine import parse_case
+from knowledge.decision.engine import parse_case, parse_form_case
 from knowledge.present.form import case_problems, creatinine_hint, field_range, hint
 from knowledge.present.links import case_from_query, query_from_case
 from knowledge.tables.loader import load_knowledge
@@ -35,19 +35,19 @@ def test_case_from_query_and_back():
     q = ("exam=ct-abdomen-pelvis&creatinine=1.4&unit=mg/dL&age=60&sex=male&metformin=1"
          "&reaction=iodinated:allergic_like:moderate:iohexol")
     data = case_from_query(q)
-    case = parse_case(data)
+    case = parse_form_case(data)  # a link is the form path: values are strings
     assert case.patient.creatinine.value == 1.4 and case.patient.age_years == 60
     assert case.patient.takes_metformin
     assert case.patient.prior_reactions[0].agent == "iohexol"
     # the same keys and values (links are written in the model's field order)
     assert sorted(query_from_case(case).split("&")) == sorted(q.split("&"))
-    assert query_from_case(parse_case(case_from_query(query_from_case(case)))) == query_from_case(case)
-    assert parse_case(case_from_query(query_from_case(case))) == case
+    assert query_from_case(parse_form_case(case_from_query(query_from_case(case)))) == query_from_case(case)
+    assert parse_form_case(case_from_query(query_from_case(case))) == case
 
 
 def test_exam_time_and_sample_date_travel_in_the_link():
     q = "exam=ct-angiography-aorta&at=2026-12-02T09:00&creatinine=1.9&unit=mg/dL&measured=2026-11-30&diabetes=1"
-    case = parse_case(case_from_query(q))
+    case = parse_form_case(case_from_query(q))
     assert case.scheduled_at.isoformat() == "2026-12-02T09:00:00"
     assert str(case.patient.creatinine.measured_on) == "2026-11-30" and case.patient.diabetes
     # the same keys and values (links are written in the model's field order)

@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import csv
 import datetime as dt
-import os
 from pathlib import Path
 
 import pytest

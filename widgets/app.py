@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import datetime as dt
 import html
+import logging
 import os
 from typing import Any
 
@@ -16,7 +17,7 @@ import ipywidgets as w
 import traitlets
 
 from knowledge.tables import models as m
-from knowledge.decision.engine import DECISION_SUPPORT, parse_case
+from knowledge.decision.engine import DECISION_SUPPORT, parse_form_case
 from knowledge.decision.engine import decide
 from knowledge.errors import ContrastAidError
 from knowledge.present.form import case_problems, creatinine_message, field_message, typed_case
@@ -32,6 +33,8 @@ from .inputs import CaseModel, ExamPicker, PatientPanel
 from .panels import KnowledgeBrowser, ProtocolNote
 from .style import CSS
 from .worklist import worklist_section
+
+_log = logging.getLogger(__name__)
 
 CAUTION = ("Decision support only: local policy and the supervising radiologist decide; licensed practice "
            "applies. Check every suggestion against the patient and the local product information.")
@@ -257,11 +260,16 @@ class ContrastAidApp(w.VBox):
         case = decision = None
         if not problems:
             try:
-                case = parse_case(data)
+                case = parse_form_case(data)
                 decision = decide(case, self.knowledge)
                 self._update_whatif(case)
             except ContrastAidError as exc:
                 problems = [(exc.field or "", exc.message)]
+            except Exception as exc:  # never leave the last plan on screen as if it were current
+                _log.error("recompute failed: %s (case values not logged)", type(exc).__name__)
+                case = decision = None
+                problems = [("", "Not updated: the plan could not be worked out for these inputs "
+                                 f"(internal error {type(exc).__name__}); the plan shown is not current")]
         problems = [(f, self._in_form_words(f, msg, data)) for f, msg in problems]
         by_field: dict[str, list[str]] = {}
         for field, message in problems:

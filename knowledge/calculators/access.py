@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 from ..errors import RangeError, out_of_range
 from .ranges import FLOW_RANGE, GAUGE_RANGE
 
-SITES = ("antecubital", "forearm", "hand_or_wrist", "central_power_injectable", "central_not_power_rated")
+from ..tables.constants import IV_SITES as SITES
 
 PREFERRED_GAUGE_AT_3 = 20  # 20-gauge or larger (smaller number) preferable at ≥3 mL/s
 HIGH_FLOW_ML_S = 3.0
@@ -48,8 +48,7 @@ def check_access(gauge: int, site: str, flow_ml_s: float) -> AccessCheck:
     if not (GAUGE_RANGE[0] <= gauge <= GAUGE_RANGE[1]):
         raise out_of_range("iv_access.gauge", gauge, GAUGE_RANGE[0], GAUGE_RANGE[1], "gauge")
     if site not in SITES:
-        raise RangeError(f"iv_access.site: {site!r} is not allowed; allowed: {', '.join(SITES)}",
-                         field="iv_access.site")
+        raise RangeError(field="iv_access.site", value=site, problem="is not allowed", allowed=", ".join(SITES))
     if not (FLOW_RANGE[0] <= flow_ml_s <= FLOW_RANGE[1]):
         raise out_of_range("flow_ml_s", flow_ml_s, FLOW_RANGE[0], FLOW_RANGE[1], "mL/s")
     ok = True

@@ -63,7 +63,7 @@ def bsa(weight_kg: float, height_cm: float, formula: str = "du_bois") -> float:
         return bsa_du_bois(weight_kg, height_cm)
     if formula == "mosteller":
         return bsa_mosteller(weight_kg, height_cm)
-    raise RangeError(f"bsa_formula: {formula!r} is not allowed; allowed: 'du_bois', 'mosteller'", field="bsa_formula")
+    raise RangeError(field="bsa_formula", value=formula, problem="is not allowed", allowed="'du_bois', 'mosteller'")
 
 
 def absolute_gfr(egfr: float, bsa_m2: float) -> float:

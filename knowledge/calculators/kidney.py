@@ -39,7 +39,7 @@ def creatinine_to_mg_dl(value: float, unit: str) -> float:
         return float(value)
     if unit == "umol/L":
         return float(value) / UMOL_PER_MG_DL
-    raise RangeError(f"creatinine.unit: {unit!r} is not allowed; allowed: 'mg/dL', 'umol/L'", field="creatinine.unit")
+    raise RangeError(field="creatinine.unit", value=unit, problem="is not allowed", allowed="'mg/dL', 'umol/L'")
 
 
 def creatinine_from_mg_dl(value_mg_dl: float, unit: str) -> float:
@@ -54,7 +54,7 @@ def creatinine_from_mg_dl(value_mg_dl: float, unit: str) -> float:
         return float(value_mg_dl)
     if unit == "umol/L":
         return float(value_mg_dl) * UMOL_PER_MG_DL
-    raise RangeError(f"creatinine.unit: {unit!r} is not allowed; allowed: 'mg/dL', 'umol/L'", field="creatinine.unit")
+    raise RangeError(field="creatinine.unit", value=unit, problem="is not allowed", allowed="'mg/dL', 'umol/L'")
 
 
 def egfr_ckd_epi_2021(scr_mg_dl: float, age_years: float, sex: str) -> float:
@@ -82,7 +82,7 @@ def egfr_ckd_epi_2021(scr_mg_dl: float, age_years: float, sex: str) -> float:
     elif sex == "male":
         kappa, alpha, factor = 0.9, -0.302, 1.0
     else:
-        raise RangeError(f"sex: {sex!r} is not allowed; allowed: 'female', 'male'", field="sex")
+        raise RangeError(field="sex", value=sex, problem="is not allowed", allowed="'female', 'male'")
     ratio = scr_mg_dl / kappa
     return 142.0 * min(ratio, 1.0) ** alpha * max(ratio, 1.0) ** -1.200 * 0.9938**age_years * factor
 
@@ -112,7 +112,7 @@ def egfr_ckd_epi_2021_cystatin(scr_mg_dl: float, scys_mg_l: float, age_years: fl
     elif sex == "male":
         kappa, alpha, factor = 0.9, -0.144, 1.0
     else:
-        raise RangeError(f"sex: {sex!r} is not allowed; allowed: 'female', 'male'", field="sex")
+        raise RangeError(field="sex", value=sex, problem="is not allowed", allowed="'female', 'male'")
     r = scr_mg_dl / kappa
     c = scys_mg_l / 0.8
     return (

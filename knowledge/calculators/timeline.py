@@ -18,7 +18,7 @@ from typing import Any
 from .freshness import align_times
 
 #: Hours after contrast before kidney function is re-checked and metformin restarted (ACR Manual, ESUR v10).
-METFORMIN_RECHECK_HOURS = 48.0
+from ..tables.constants import METFORMIN_HOLD_HOURS as METFORMIN_RECHECK_HOURS
 
 
 @dataclass

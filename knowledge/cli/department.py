@@ -121,7 +121,7 @@ def diff_decisions(a: dict, b: dict) -> list[str]:
 def cmd_policy_diff(args: argparse.Namespace) -> int:
     from ..decision.engine import decide
     from ..decision.department import resolve_exam
-    from ..review.columns import CaseBuilder
+    from ..review.columns import CaseBuilder, RowError
     from ..review.worklist import read_worklist
 
     k_new = load_knowledge(policy=args.file)
@@ -137,6 +137,10 @@ def cmd_policy_diff(args: argparse.Namespace) -> int:
         for row in rows:
             c = builder.case_dict(row, resolve_exam(row["exam"], k_new))  # local codes mean the same for both
             c["as_of"] = as_of
+            try:  # the cells are text: read them as the review reads them
+                c = builder.validate(c).model_dump(mode="json", exclude_unset=True)
+            except (ContrastAidError, RowError):
+                pass  # decide names the problem below
             cases.append((str(row.get("order_id", "")), c))
         what = f"{len(cases)} orders of {Path(args.cases).name}"
     else:

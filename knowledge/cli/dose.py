@@ -108,7 +108,7 @@ def check_flags(args: argparse.Namespace) -> None:
                         + "|".join(SITES), field="--gauge")
     if args.unit not in ("mg/dL", "umol/L"):
         raise CaseError(f"--unit: {args.unit!r} is not allowed; allowed: mg/dL, umol/L", field="--unit")
-    if args.route not in ("intravenous", "intra_arterial"):
+    if args.route not in {r.value for r in m.INTRAVASCULAR}:
         raise CaseError(f"--route: {args.route!r} is not allowed; allowed: intravenous, intra_arterial",
                         field="--route")
 

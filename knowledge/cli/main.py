@@ -35,20 +35,77 @@ def _knowledge(args: argparse.Namespace):
     return load_knowledge(getattr(args, "data", None), getattr(args, "policy", None))
 
 
-def read_case_file(path: str) -> Any:
-    """Read a case from a JSON file (``-`` for stdin). Raises CaseError with a one-line message."""
+#: Largest case file read (bytes): a case is a few kB; /dev/zero or a 1 GB file is refused, not read for ever.
+MAX_CASE_BYTES = 1_000_000
+#: Most digits of a whole number in a case file (no case value needs more than a handful).
+MAX_INT_DIGITS = 20
+
+
+def _no_duplicates(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
+    """JSON object hook: a key given twice is refused (the last no longer wins silently)."""
+    out: dict[str, Any] = {}
+    for key, value in pairs:
+        if key in out:
+            raise CaseError(field=key, problem="appears twice in the same object",
+                            allowed="each field once")
+        out[key] = value
+    return out
+
+
+def _int(text: str) -> int:
+    if len(text.lstrip("-")) > MAX_INT_DIGITS:
+        raise CaseError(field="case", value=text, problem=f"is a number of {len(text)} digits",
+                        allowed=f"at most {MAX_INT_DIGITS} digits")
+    return int(text)
+
+
+def _float(text: str) -> float:
+    if len(text) > 100:
+        raise CaseError(field="case", value=text, problem=f"is a number of {len(text)} characters",
+                        allowed="at most 100 characters")
+    return float(text)
+
+
+def _constant(text: str) -> Any:
+    raise CaseError(field="case", value=text, problem="is not a JSON number", allowed="a finite number")
+
+
+def parse_case_json(text: str, where: str) -> Any:
+    """JSON text of a case as Python data: duplicate keys, NaN/Infinity, 5,000-digit numbers and very
+    deep nesting are each refused with one line (CaseError)."""
     try:
-        text = sys.stdin.read() if path == "-" else Path(path).read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise CaseError(f"{path}: file not found") from None
-    except IsADirectoryError:
-        raise CaseError(f"{path}: is a folder, not a case file") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise CaseError(f"{path}: cannot be read ({getattr(exc, 'strerror', None) or exc})") from None
-    try:
-        return json.loads(text)
+        return json.loads(text, object_pairs_hook=_no_duplicates, parse_int=_int, parse_float=_float,
+                          parse_constant=_constant)
     except json.JSONDecodeError as exc:
-        raise CaseError(f"{path}: not valid JSON at line {exc.lineno}, column {exc.colno}: {exc.msg}") from None
+        raise CaseError(f"{where}: not valid JSON at line {exc.lineno}, column {exc.colno}: {exc.msg}",
+                        field=where) from None
+    except RecursionError:
+        raise CaseError(field=where, problem="is nested too deeply", allowed="a case object a few levels deep") from None
+    except CaseError as exc:
+        raise CaseError(f"{where}: {exc.message}", field=exc.field, value=exc.value, allowed=exc.allowed) from None
+    except ValueError as exc:  # e.g. Python's integer-string length limit
+        raise CaseError(field=where, problem=f"holds a value that cannot be read ({exc})", allowed="a JSON case") from None
+
+
+def read_case_file(path: str) -> Any:
+    """Read a case from a JSON file (``-`` for stdin). Raises CaseError with a one-line message.
+
+    Only a regular file under MAX_CASE_BYTES is opened (a device or a named pipe is refused before it is
+    opened, so nothing hangs); stdin is read up to the same limit."""
+    from ..tables.loader import _read_text
+
+    if path == "-":
+        text = sys.stdin.read(MAX_CASE_BYTES + 1)
+        if len(text) > MAX_CASE_BYTES:
+            raise CaseError(field="-", problem="standard input is too big", allowed=f"at most {MAX_CASE_BYTES} bytes")
+    else:
+        blob = _read_text(Path(path), CaseError, MAX_CASE_BYTES)
+        try:
+            text = blob.decode("utf-8")
+        except UnicodeDecodeError as exc:
+            raise CaseError(f"{path}: not UTF-8 text (byte {exc.start + 1}); allowed: a UTF-8 JSON file",
+                            field=path) from None
+    return parse_case_json(text, path)
 
 
 def _print_json(data: Any) -> None:
@@ -144,17 +201,9 @@ def cmd_agents(args: argparse.Namespace) -> int:
     return 0
 
 
-_EGFR_FLAGS = {"age_years": "--age", "sex": "--sex", "height_cm": "--height-cm", "creatinine.value": "--creatinine",
-               "creatinine.unit": "--unit", "creatinine": "--creatinine", "cystatin_c_mg_l": "--cystatin-c"}
-
-
-def _flag_message(message: str) -> str:
-    """Rename case field paths in a message to the egfr subcommand's flags."""
-    body = message.removeprefix("patient.")
-    for field in sorted(_EGFR_FLAGS, key=len, reverse=True):
-        if body.startswith(field + ":"):
-            return _EGFR_FLAGS[field] + body[len(field):]
-    return body
+_EGFR_FLAGS = {"patient.age_years": "--age", "patient.sex": "--sex", "patient.height_cm": "--height-cm",
+               "patient.creatinine.value": "--creatinine", "patient.creatinine.unit": "--unit",
+               "patient.creatinine": "--creatinine", "patient.cystatin_c_mg_l": "--cystatin-c"}
 
 
 def cmd_egfr(args: argparse.Namespace) -> int:
@@ -173,7 +222,8 @@ def cmd_egfr(args: argparse.Namespace) -> int:
         case = parse_case({"exam": "none", "patient": patient})
         egfr, equation, category, note = renal_block(case.patient)
     except ContrastAidError as exc:
-        raise CaseError(_flag_message(exc.message)) from None
+        flags = {**_EGFR_FLAGS, **{k.removeprefix("patient."): v for k, v in _EGFR_FLAGS.items()}}
+        raise exc.at("", rename=flags) from None
     if egfr is None:
         raise CaseError("--height-cm: missing; allowed: a height in cm (the bedside Schwartz equation needs it "
                         "under 18 years)")
@@ -192,7 +242,38 @@ def cmd_knowledge_check(args: argparse.Namespace) -> int:
         f"knowledge ok: {c['exams']} exams, {c['agents']} agents, {c['rules']} rules, {c['sources']} sources; "
         f"version {k.version}; policy {k.policy.id} ({k.policy_version})\n"
     )
+    if getattr(args, "lint", False):
+        _write_lint(k, getattr(args, "json", False))
     return 0
+
+
+def cmd_knowledge_lint(args: argparse.Namespace) -> int:
+    _write_lint(_knowledge(args), args.json)
+    return 0
+
+
+def _write_lint(k, as_json: bool) -> None:
+    from ..tables.lint import lint, patient_factors
+
+    report = lint(k)
+    if as_json:
+        _print_json(report.as_dict())
+        return
+    out = sys.stdout.write
+    out(f"rules that can never fire: {', '.join(report.never_fire) or 'none'}\n")
+    if report.undecided:
+        out(f"rules too large to decide: {', '.join(report.undecided)}\n")
+    out(f"sources no table record cites (calculators may cite them in their docstrings): {', '.join(report.sources_never_cited) or 'none'}\n")
+    out(f"agents never offered: {', '.join(report.agents_never_offered) or 'none'}\n")
+    out("coverage (exam x patient factor -> the rules that consider it):\n")
+    factors = patient_factors()
+    for exam_id, row in report.coverage.items():
+        out(f"  {exam_id}\n")
+        for fact, rules in row.items():
+            out(f"    {fact:<44} {', '.join(rules)}\n")
+        missing = [f for f in factors if f not in row]
+        if missing:
+            out(f"    {'(considered by no rule)':<44} {', '.join(missing)}\n")
 
 
 def cmd_knowledge_schema(args: argparse.Namespace) -> int:
@@ -258,7 +339,13 @@ def build_parser() -> argparse.ArgumentParser:
     ksub = kn.add_subparsers(dest="knowledge_command", required=True, parser_class=_Parser)
     p = with_policy(ksub.add_parser("check", help="validate the tables and the policy, print counts"))
     p.add_argument("--data", metavar="DIR", help="a folder of tables to check instead of the bundled one")
+    p.add_argument("--lint", action="store_true", help="also print the lint (see `knowledge lint`)")
     p.set_defaults(func=cmd_knowledge_check)
+    p = with_policy(ksub.add_parser("lint", help="rules that never fire, sources never cited, agents never "
+                                                 "offered, and the exam x patient factor coverage"))
+    p.add_argument("--data", metavar="DIR", help="a folder of tables to lint instead of the bundled one")
+    p.add_argument("--json", action="store_true")
+    p.set_defaults(func=cmd_knowledge_lint)
     p = ksub.add_parser("schema", help="JSON Schema of the tables, policy, case and decision")
     p.set_defaults(func=cmd_knowledge_schema)
     p = ksub.add_parser("facts", help="the facts rule conditions may test")
@@ -279,14 +366,35 @@ def main(argv: Sequence[str] | None = None, clock=wall_clock) -> int:
     args = parser.parse_args(argv)
     args.clock = clock
     try:
-        return args.func(args)
+        code = args.func(args)
+        sys.stdout.flush()
+        return code
     except ContrastAidError as exc:
         sys.stderr.write(f"contrast-aid: {exc.message}\n")
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
         return 130
     except BrokenPipeError:
+        _detach_stdout()
         return 0
+    except OSError as exc:  # e.g. a full disk (/dev/full) under the output
+        _detach_stdout()
+        sys.stderr.write(f"contrast-aid: output: cannot be written ({exc.strerror or type(exc).__name__})\n")
+        return EXIT_BAD_INPUT
+    except RecursionError:
+        sys.stderr.write("contrast-aid: input: nested too deeply; allowed: a case object a few levels deep\n")
+        return EXIT_BAD_INPUT
+
+
+def _detach_stdout() -> None:
+    """Point stdout at /dev/null so the interpreter's final flush cannot fail a second time."""
+    import os
+
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError):
+        pass
 
 
 if __name__ == "__main__":

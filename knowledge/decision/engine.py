@@ -9,19 +9,22 @@ raises the decision-level flags of its rules: hydration, premedication, metformi
 
 from __future__ import annotations
 
-import difflib
+import datetime as dt
+import json
 from dataclasses import dataclass, field
+from enum import Enum
 from typing import Any
 
-from pydantic import ValidationError
+from pydantic import BaseModel, ValidationError
 
 from ..tables import models as m
 from ..calculators import kidney
-from ..errors import CaseError, ContrastAidError
+from ..errors import NO_VALUE, CaseError, ContrastAidError, suggest
+from ..tables.constants import METFORMIN_HOLD_HOURS, SEVERITY_ORDER, SEVERITY_RANK
 from ..tables.loader import Knowledge, exam_facts
 from .plans import add_plans
+from ..tables.validation import error_from
 from . import department
-from ..tables.validation import describe
 
 DECISION_SUPPORT = (
     "Decision support only: the supervising radiologist, local policy and licensed practice decide."
@@ -31,22 +34,91 @@ READINESS = (
     "at hand (common practice)."
 )
 _SYSTEMIC = m.INTRAVASCULAR | {m.Route.intrathecal}
+#: An exam may be planned at most this many years after the case's "now" (the plans work in hours).
+MAX_YEARS_AHEAD = 5
+_SEVERITY = SEVERITY_RANK
+_SEVERITY_NAME = dict(enumerate(SEVERITY_ORDER))
+
+
+def _json_default(value: Any) -> Any:
+    if isinstance(value, (dt.date, dt.datetime)):
+        return value.isoformat()
+    if isinstance(value, Enum):
+        return value.value
+    if isinstance(value, BaseModel):
+        return value.model_dump(mode="json", exclude_unset=True)
+    raise TypeError(type(value).__name__)
 #: families whose systemic use always shows the readiness caution (gadolinium: issue 13, ACR Manual)
 _READINESS_FAMILIES = (m.Family.iodinated, m.Family.oil, m.Family.gadolinium)
-_SEVERITY = {"none": 0, "mild": 1, "moderate": 2, "severe": 3}
-_SEVERITY_NAME = {v: k for k, v in _SEVERITY.items()}
 
 
 def parse_case(data: Any) -> m.Case:
-    """Validate a case given as a dict (or return a Case unchanged). Raises :class:`CaseError`."""
+    """Validate a case exactly as written (JSON types, strictly), or return a Case unchanged.
+
+    ``"age_years": true``, ``"71"``, ``"yes"`` or an epoch number for a date are refused, never coerced;
+    date-times are local without offset. Only the dashboard form parses strings: see
+    :func:`parse_form_case`. Raises :class:`CaseError` naming the field."""
     if isinstance(data, m.Case):
         return data
     if not isinstance(data, dict):
-        raise CaseError(f"case: must be a JSON object with 'exam' and 'patient'; got {type(data).__name__}")
+        raise CaseError(f"case: must be a JSON object with 'exam' and 'patient'; got {type(data).__name__}",
+                        field="case", value=data, allowed="an object with 'exam' and 'patient'")
     try:
-        return m.Case.model_validate(data)
+        text = json.dumps(data, default=_json_default, allow_nan=False)
+    except (TypeError, ValueError, RecursionError) as exc:
+        raise CaseError(field="case", value=NO_VALUE, problem=f"holds a value that is not JSON ({exc})"[:120],
+                        allowed="JSON numbers, strings, true/false, null, lists and objects") from None
+    try:
+        case = m.Case.model_validate_json(text, strict=True)
     except ValidationError as exc:
-        raise CaseError(describe(exc, m.Case)) from None
+        raise error_from(exc, m.Case, CaseError) from None
+    check_case_times(case)
+    return case
+
+
+def parse_form_case(data: Any) -> m.Case:
+    """Validate a case from the dashboard form or a shared link: like :func:`parse_case`, but the values
+    may be strings as typed ("71", "2026-12-02 09:00"), which pydantic's lax mode converts."""
+    if isinstance(data, m.Case):
+        return data
+    if not isinstance(data, dict):
+        raise CaseError(f"case: must be an object with 'exam' and 'patient'; got {type(data).__name__}",
+                        field="case", value=data, allowed="an object with 'exam' and 'patient'")
+    try:
+        case = m.Case.model_validate(data)
+    except ValidationError as exc:
+        raise error_from(exc, m.Case, CaseError) from None
+    check_case_times(case)
+    return case
+
+
+def case_time_problems(case: m.Case) -> list[CaseError]:
+    """Date-times that contradict the case's own "now" (``as_of``; the core never reads a clock): an exam
+    already past, an exam more than MAX_YEARS_AHEAD years ahead, a creatinine taken after "now"."""
+    out: list[CaseError] = []
+    now, when = case.as_of, case.scheduled_at
+    if now is None:
+        return out
+    if when is not None and when < now:
+        out.append(CaseError(field="scheduled_at", value=when.isoformat(), problem="is before as_of "
+                             f"{now.isoformat()} (the exam is already past)", allowed="a time at or after as_of"))
+    elif when is not None and when > now + dt.timedelta(days=366 * MAX_YEARS_AHEAD):
+        out.append(CaseError(field="scheduled_at", value=when.isoformat(), problem="is too far ahead",
+                             allowed=f"at most {MAX_YEARS_AHEAD} years after as_of {now.isoformat()}"))
+    cr = case.patient.creatinine
+    if cr is not None and cr.measured_on is not None:
+        taken = cr.measured_on if isinstance(cr.measured_on, dt.datetime) else \
+            dt.datetime.combine(cr.measured_on, dt.time())
+        if taken > now:
+            out.append(CaseError(field="patient.creatinine.measured_on", value=cr.measured_on.isoformat(),
+                                 problem=f"is after as_of {now.isoformat()}", allowed="a date at or before as_of"))
+    return out
+
+
+def check_case_times(case: m.Case) -> None:
+    problems = case_time_problems(case)
+    if problems:
+        raise problems[0]
 
 
 def renal_block(patient: m.Patient) -> tuple[float | None, str | None, str | None, str | None]:
@@ -218,27 +290,26 @@ def check_references(case: m.Case, k: Knowledge) -> m.Exam:
     """The exam, the requested agent and every culprit agent must exist and fit; returns the exam."""
     exam = k.exams.get(case.exam)
     if exam is None:
-        near = difflib.get_close_matches(case.exam, list(k.exams), n=3, cutoff=0.5)
-        hint = f" (did you mean {', '.join(near)}?)" if near else ""
-        raise CaseError(f"exam: {case.exam!r} is not a known exam{hint}; allowed: the ids of `contrast-aid exams`",
-                        field="exam")
+        raise CaseError(field="exam", value=case.exam, problem="is not a known exam",
+                        suggestion=suggest(case.exam, k.exams), allowed="the ids of `contrast-aid exams`")
     if case.agent is not None and case.agent not in k.agents:
-        raise CaseError(f"agent: {case.agent!r} is not a known agent; allowed: the ids of `contrast-aid agents`",
-                        field="agent")
+        raise CaseError(field="agent", value=case.agent, problem="is not a known agent",
+                        suggestion=suggest(case.agent, k.agents), allowed="the ids of `contrast-aid agents`")
     if case.agent is not None:
         possible = sorted({a.id for i in range(len(exam.roles)) for a, _, _ in k.candidates[(exam.id, i)]})
         if case.agent not in possible:
             allowed = ", ".join(possible) if possible else "none (this exam uses no contrast)"
-            raise CaseError(f"agent: {case.agent!r} cannot be given in any role of {exam.id}; allowed: {allowed}",
-                            field="agent")
+            raise CaseError(field="agent", value=case.agent, problem=f"cannot be given in any role of {exam.id}",
+                            allowed=allowed)
     for i, r in enumerate(case.patient.prior_reactions):
         where = f"patient.prior_reactions[{i}].agent"
         if r.agent is not None and r.agent not in k.agents:
-            raise CaseError(f"{where}: {r.agent!r} is not a known agent; allowed: the ids of `contrast-aid agents`",
-                            field=where)
+            raise CaseError(field=where, value=r.agent, problem="is not a known agent",
+                            suggestion=suggest(r.agent, k.agents), allowed="the ids of `contrast-aid agents`")
         if r.agent is not None and _reaction_family(k.agents[r.agent].family) != _reaction_family(r.agent_family):
-            raise CaseError(f"{where}: {r.agent} is {k.agents[r.agent].family.value}, not "
-                            f"{r.agent_family.value}; allowed: an agent of the family given", field=where)
+            raise CaseError(field=where, value=r.agent,
+                            problem=f"is {k.agents[r.agent].family.value}, not {r.agent_family.value}",
+                            allowed="an agent of the family given")
     return exam
 
 
@@ -256,7 +327,7 @@ def kidney_stage(patient: m.Patient, policy: m.Policy | None = None, raised: _Ra
         if patient.egfr is not None and patient.creatinine is not None:
             computed = computed_egfr(patient)[0]
     except ContrastAidError as exc:
-        raise CaseError(f"patient.{exc.message}", field=f"patient.{exc.field}") from None
+        raise exc.at("patient") from None
     if computed is not None and policy is not None and egfr is not None:
         margin = policy.egfr_discordance_percent
         low, high = sorted((egfr, computed))
@@ -440,8 +511,8 @@ def _metformin_advice(case: m.Case, egfr: float | None, hold: bool, iodinated_in
         return ("On dialysis: metformin is contraindicated in any case - check the medication list with the "
                 "prescriber; contrast does not change it")
     if hold:
-        return ("Withhold metformin from the time of contrast for 48 h; restart only after kidney function "
-                "is re-checked")
+        return (f"Withhold metformin from the time of contrast for {METFORMIN_HOLD_HOURS:g} h; restart only after "
+                "kidney function is re-checked")
     if iodinated_intravascular and egfr is None and not p.acute_kidney_injury:
         # also when carbon dioxide is planned: an iodinated top-up may follow
         raised.alert("warn", "Takes metformin and no eGFR is known: obtain an eGFR before intravascular iodinated "

@@ -21,7 +21,6 @@ their edge); with no ``as_of`` the time left before the exam is not checked, and
 
 from __future__ import annotations
 
-import datetime as dt
 import math
 from typing import Any
 
@@ -30,10 +29,9 @@ from ..calculators import access as access_calc
 from ..calculators import body, dose as dose_calc, freshness, hydration, kidney, limits, timeline, viscosity
 from ..calculators import paediatric
 from ..errors import CaseError, ContrastAidError, RangeError
+from ..tables.constants import METFORMIN_HOLD_HOURS, VISCOUS_FLOW_ML_S, VISCOUS_MPAS_37C
 from .agent_doses import plan_agent_doses  # gadolinium and microbubble doses (issue 13)
 
-#: Hours after contrast at which kidney function is re-checked before metformin is restarted.
-METFORMIN_RECHECK_HOURS = timeline.METFORMIN_RECHECK_HOURS
 
 
 def _r(value: float | None, nd: int = 1) -> float | None:
@@ -48,7 +46,7 @@ def _as_case_field(exc: ContrastAidError) -> ContrastAidError:
     field = exc.field or ""
     if field.startswith(_OWN_PREFIXES):
         return exc
-    return type(exc)(f"patient.{exc.message}", field=f"patient.{field}")
+    return exc.at("patient")
 
 
 # --------------------------------------------------------------------------------------------------
@@ -59,10 +57,6 @@ def mg_i_strengths(agent: m.Agent) -> list[m.Concentration]:
     lo, hi = dose_calc.CONCENTRATION_RANGE
     return [c for c in agent.concentrations if c.unit is m.Unit.mg_i_per_ml and lo <= c.value <= hi]
 
-
-#: a strength this viscous at 37 °C, injected this fast, is warmed first (viscosity warning thresholds)
-VISCOUS_MPAS_37C = 8.0
-VISCOUS_FLOW_ML_S = 3.0
 
 
 def dose_block(agent: m.Agent, protocol: m.DoseProtocol | None, route: m.Route, *, weight_kg: float | None,
@@ -439,7 +433,7 @@ def plan_metformin(case: m.Case, met: m.MetforminBlock) -> m.MetforminBlock:
     if not met.hold:
         return met
     hold_from, recheck_at = timeline.metformin_timeline(case.scheduled_at)
-    return met.model_copy(update=dict(hold_from=hold_from, recheck_after_hours=METFORMIN_RECHECK_HOURS,
+    return met.model_copy(update=dict(hold_from=hold_from, recheck_after_hours=METFORMIN_HOLD_HOURS,
                                       recheck_at=recheck_at))
 
 

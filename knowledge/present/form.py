@@ -73,11 +73,13 @@ def case_problems(data: dict) -> list[tuple[str, str]]:
 
     from ..tables.validation import problems
 
+    from ..decision.engine import case_time_problems
+
     try:
-        m.Case.model_validate(data)
+        case = m.Case.model_validate(data)
     except ValidationError as exc:
         return problems(exc, m.Case)
-    return []
+    return [(e.field or "", e.message) for e in case_time_problems(case)]
 
 
 # ==================================================================================================
@@ -90,7 +92,7 @@ import datetime as _dt
 import enum as _enum
 import types as _types
 import typing as _typing
-from dataclasses import dataclass as _dataclass, field as _field
+from dataclasses import dataclass as _dataclass
 
 #: the ONE table of groups: heading -> Patient fields, in the order shown (unlisted fields go to "other")
 GROUPS: dict[str, tuple[str, ...]] = {

@@ -10,9 +10,9 @@ repeatable key with its fields joined by ``:`` in model order (``reaction=FAMILY
 a list of choices is a repeatable key. Booleans are ``1``. The case model has no field for a name, a record
 number or a date of birth, and unknown keys (for example those Voila adds) are ignored.
 
-Values are passed on as given (strings); :func:`knowledge.decision.engine.parse_case` (after the form's
-:func:`~knowledge.present.form.typed_case`) validates them and names the field of any bad value, so a link
-can never crash the dashboard.
+Values are passed on as given (strings); :func:`knowledge.decision.engine.parse_form_case` (after the
+form's :func:`~knowledge.present.form.typed_case`) validates them and names the field of any bad value, so
+a link can never crash the dashboard.
 """
 
 from __future__ import annotations
@@ -80,11 +80,11 @@ def _flag(value: str) -> bool | str:
         return True
     if low in _FALSE:
         return False
-    return value  # left for parse_case to reject, naming the field
+    return value  # left for parse_form_case to reject, naming the field
 
 
 def case_from_query(query: str) -> dict[str, Any]:
-    """A case dict (for ``parse_case``) from a URL query string; unknown keys are ignored.
+    """A case dict (for ``parse_form_case``) from a URL query string; unknown keys are ignored.
 
     Keys: see the module docstring and :func:`link_keys` (``exam``, ``agent``, ``at``, ``asof``,
     ``creatinine`` with ``unit`` (default ``mg/dL``) and ``measured``, ``age``, ``sex``, ..., ``iv_gauge``

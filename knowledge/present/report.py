@@ -21,11 +21,9 @@ from ..tables import models as m
 from ..decision.engine import DECISION_SUPPORT
 from ..tables.loader import Knowledge
 from .form import FieldSpec, case_specs, label_of
-from .summary import clock, human_ago, human_duration, plan_summary, split_options
+from .summary import human_ago, human_duration, plan_summary, split_options
 
-#: ACR Manual on Contrast Media, metformin: withhold for 48 h after contrast when indicated (the
-#: engine's advice text says the same).
-METFORMIN_HOLD_HOURS = 48.0
+from ..tables.constants import METFORMIN_HOLD_HOURS  # ACR Manual on Contrast Media, metformin
 
 VERDICT_WORDS = {v: v.value.replace("_", " ") for v in m.Verdict}
 ROUTE_WORDS = {r: r.value.replace("_", "-") for r in m.Route}

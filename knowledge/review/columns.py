@@ -23,8 +23,9 @@ from typing import Any
 
 from pydantic import BaseModel, ValidationError
 
+from ..decision.engine import check_case_times
 from ..tables import models as m
-from ..tables.validation import clean_loc, dotted, problems
+from ..tables.validation import clean_loc, dotted, first_error_parts, line_from_parts
 
 REQUIRED = ("order_id", "exam")
 RENAMED = {"agent": "planned_agent"}
@@ -137,11 +138,13 @@ class CaseBuilder:
         return dotted(clean_loc(loc))
 
     def validate(self, case: dict) -> m.Case:
+        """A case from the cells' text (lax, as the dashboard form reads typed text), with the same
+        checks of its date-times against its as_of as every case (``check_case_times``)."""
         try:
-            return m.Case.model_validate(case)
+            case_obj = m.Case.model_validate(case)
+            check_case_times(case_obj)
+            return case_obj
         except ValidationError as exc:
             err = exc.errors(include_url=False)[0]
-            field, message = problems(exc, m.Case)[0]
             column = self.column_for(err["loc"])
-            body = message[len(field) + 2:] if message.startswith(field + ": ") else message
-            raise RowError(f"column {column}: {body}") from None
+            raise RowError(line_from_parts(first_error_parts(exc, m.Case), f"column {column}")) from None

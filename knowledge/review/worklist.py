@@ -197,15 +197,12 @@ def review_case(case_dict: dict, k: Any, builder: CaseBuilder) -> dict[str, Any]
         d = decide(case, k)
     except RowError as exc:
         return _rejected(str(exc), k, case_dict)
-    except ContrastAidError as exc:
-        msg = exc.message
-        column = "planned_agent" if msg.startswith("agent:") else None
-        if msg.startswith("patient.prior_reactions"):
-            column = "prior_reactions"
-        if column:
-            msg = f"column {column}:" + msg.split(":", 1)[1]
-        elif msg.startswith("exam:"):
-            msg = "column " + msg
+    except ContrastAidError as exc:  # named by the error's field, never by parsing its text
+        field = exc.field or ""
+        column = ("planned_agent" if field == "agent" else "prior_reactions"
+                  if field.startswith("patient.prior_reactions") else field if field in ("exam", "scheduled_at",
+                                                                                      "as_of") else None)
+        msg = exc.at("", rename={field: f"column {column}"}).message if column else exc.message
         return _rejected(msg, k, case_dict)
     out = summarise_decision(d, case)
     out["status"] = "flagged" if out["flags"] or out["alerts"] else "ok"

@@ -10,13 +10,14 @@ from __future__ import annotations
 from typing import Any, Callable
 
 from . import models as m
-from ..errors import KnowledgeError
+from ..errors import KnowledgeError, suggest
+from .constants import SEVERITY_RANK
 from .facts import FACTS
 
 Facts = dict[str, Any]
 Compiled = Callable[[Facts], bool]
 
-_SEVERITY_RANK = {"none": 0, "mild": 1, "moderate": 2, "severe": 3}
+_SEVERITY_RANK = SEVERITY_RANK
 
 
 def facts_used(cond: m.Condition) -> set[str]:
@@ -118,7 +119,11 @@ def compile_condition(cond: m.Condition, policy: m.Policy, where: str, scope: m.
 
     spec = FACTS.get(cond.fact)
     if spec is None:
-        raise KnowledgeError(f"{where}: unknown fact {cond.fact!r}; see `contrast-aid knowledge facts` for the catalogue")
+        near = suggest(cond.fact, FACTS)
+        hint = f" (did you mean {near}?)" if near else ""
+        raise KnowledgeError(f"{where}: unknown fact {cond.fact!r}{hint}; see `contrast-aid knowledge facts` for the "
+                             "catalogue", field=where, value=cond.fact, suggestion=near,
+                             allowed="the facts of `contrast-aid knowledge facts`")
     if scope is m.Scope.case and spec.scope == "agent":
         raise KnowledgeError(f"{where}: fact {cond.fact} is per agent; a case-scope rule cannot test it")
     op, raw = cond.operator, cond.operand
@@ -130,7 +135,7 @@ def compile_condition(cond: m.Condition, policy: m.Policy, where: str, scope: m.
             raise KnowledgeError(f"{where}: operator {op} needs a numeric fact or a severity; {key} is {spec.kind}")
         if is_severity:  # severity comparisons: none < mild < moderate < severe
             if raw not in _SEVERITY_RANK:
-                raise KnowledgeError(f"{where}: {raw!r} is not a severity; allowed: none, mild, moderate, severe")
+                raise KnowledgeError(f"{where}: {raw!r} is not a severity; allowed: {', '.join(SEVERITY_RANK)}")
             bound = _SEVERITY_RANK[raw]
             get = lambda f: _SEVERITY_RANK[f.get(key) or "none"]  # noqa: E731
         else:

@@ -20,7 +20,7 @@ from . import models as m
 from .conditions import Compiled, compile_condition, compile_partial
 from . import overlay as ov_mod
 from ..errors import KnowledgeError
-from .validation import describe
+from .validation import describe, error_from
 
 DATA_DIR = Path(__file__).resolve().parent.parent / "data"
 #: libyaml's C loader when PyYAML was built with it (same safe subset, several times faster)
@@ -88,20 +88,96 @@ class Knowledge:
         }
 
 
-def _read_yaml(path: Path) -> Any:
+#: Largest table or policy file read (bytes); the bundled tables are well under 1 MB.
+MAX_YAML_BYTES = 4_000_000
+#: Most values (scalars, lists, mappings, counted through aliases) a YAML file may expand to: an
+#: anchor/alias "bomb" of a few hundred bytes expands to billions and would take minutes and gigabytes.
+MAX_YAML_NODES = 500_000
+
+
+class _UniqueKeyLoader(_YAML_LOADER):  # type: ignore[misc, valid-type]
+    """The safe loader, but a mapping with the same key twice is an error (the last no longer wins)."""
+
+    def construct_mapping(self, node, deep=False):  # type: ignore[override]
+        seen: set = set()
+        for key_node, _ in node.value:
+            key = self.construct_object(key_node, deep=True)
+            try:
+                duplicate = key in seen
+                seen.add(key)
+            except TypeError:  # an unhashable key: the base class reports it
+                continue
+            if duplicate:
+                raise yaml.constructor.ConstructorError(
+                    None, None, f"duplicate key {str(key)[:60]!r} (each setting may appear once)", key_node.start_mark)
+        return super().construct_mapping(node, deep=deep)
+
+
+def _count_nodes(data: Any, budget: int) -> int:
+    """Values in ``data`` counted through shared (aliased) objects, stopping once past ``budget``."""
+    count, stack = 0, [data]
+    while stack:
+        item = stack.pop()
+        count += 1
+        if count > budget:
+            return count
+        if isinstance(item, dict):
+            stack.extend(item.keys())
+            stack.extend(item.values())
+        elif isinstance(item, list):
+            stack.extend(item)
+    return count
+
+
+def _read_text(path: Path, cls: type[KnowledgeError] = KnowledgeError, limit: int = MAX_YAML_BYTES) -> bytes:
+    """The bytes of a regular file no bigger than ``limit``; a device, a pipe or a folder is refused
+    before it is opened (opening a named pipe would block), and the file is opened non-blocking."""
+    import os
+    import stat
+
     try:
-        text = path.read_text(encoding="utf-8")
+        st = os.stat(path)
     except FileNotFoundError:
-        raise KnowledgeError(f"{path}: file not found") from None
-    except OSError as exc:
-        raise KnowledgeError(f"{path}: cannot be read ({exc.strerror})") from None
+        raise cls(f"{path}: file not found", field=str(path)) from None
+    except (OSError, ValueError) as exc:
+        raise cls(f"{path}: cannot be read ({getattr(exc, 'strerror', None) or exc})", field=str(path)) from None
+    if stat.S_ISDIR(st.st_mode):
+        raise cls(f"{path}: is a folder, not a file", field=str(path))
+    if not stat.S_ISREG(st.st_mode):
+        raise cls(f"{path}: is not a regular file (a device or a pipe); allowed: a file", field=str(path))
+    if st.st_size > limit:
+        raise cls(f"{path}: {st.st_size} bytes is too big; allowed: at most {limit} bytes", field=str(path))
     try:
-        return yaml.load(text, Loader=_YAML_LOADER), text.encode("utf-8")
+        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
+        with os.fdopen(fd, "rb") as fh:
+            blob = fh.read(limit + 1)
+    except OSError as exc:
+        raise cls(f"{path}: cannot be read ({exc.strerror or exc})", field=str(path)) from None
+    if len(blob) > limit:
+        raise cls(f"{path}: too big; allowed: at most {limit} bytes", field=str(path))
+    return blob
+
+
+def _read_yaml(path: Path) -> Any:
+    blob = _read_text(path)
+    try:
+        text = blob.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise KnowledgeError(f"{path.name}: not UTF-8 text (byte {exc.start + 1}); allowed: a UTF-8 YAML file",
+                             field=path.name) from None
+    try:
+        data = yaml.load(text, Loader=_UniqueKeyLoader)
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         at = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
         problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
-        raise KnowledgeError(f"{path.name}: not valid YAML{at}: {problem}") from None
+        raise KnowledgeError(f"{path.name}: not valid YAML{at}: {problem}", field=path.name) from None
+    except RecursionError:
+        raise KnowledgeError(f"{path.name}: nested too deeply; allowed: plain YAML records", field=path.name) from None
+    if _count_nodes(data, MAX_YAML_NODES) > MAX_YAML_NODES:
+        raise KnowledgeError(f"{path.name}: expands to more than {MAX_YAML_NODES} values (anchors and aliases?); "
+                             "allowed: plain YAML records", field=path.name)
+    return data, blob
 
 
 def _validate_list(model: type, rows: Any, name: str) -> list:
@@ -148,12 +224,13 @@ def _plain_policy(p: Path, raw: Any = None, blob: bytes | None = None) -> tuple[
     if not isinstance(raw, dict):
         raise KnowledgeError(f"{p.name}: a policy file must hold one mapping of settings")
     try:
-        return m.Policy.model_validate(raw), blob
+        # strict: a number must be written as a number (YAML's yes/no or "5" are not numbers), finite
+        return m.Policy.model_validate(raw, strict=True), blob
     except ValidationError as exc:
-        raise KnowledgeError(f"{p.name}: {describe(exc, m.Policy, 'policy')}") from None
+        raise error_from(exc, m.Policy, KnowledgeError, "policy", where=p.name) from None
 
 
-def load_knowledge(data_dir: Path | str | None = None, policy: Path | str | None = None) -> Knowledge:
+def load_knowledge(data_dir: Path | str | None = None, policy: Path | str | m.Policy | None = None) -> Knowledge:
     """Read, validate and index every table and the policy. Raises :class:`KnowledgeError`."""
     base = Path(data_dir) if data_dir else DATA_DIR
     raw: dict[str, Any] = {}
@@ -162,7 +239,10 @@ def load_knowledge(data_dir: Path | str | None = None, policy: Path | str | None
         data, blob = _read_yaml(base / f"{name}.yaml")
         raw[name] = data
         digest.update(name.encode() + b"\0" + blob + b"\0")
-    pol, pol_blob, overlay, base_policy = load_policy_file(policy)
+    if isinstance(policy, m.Policy):  # an already validated policy object (tests sweep thresholds this way)
+        pol, pol_blob, overlay, base_policy = policy, policy.model_dump_json().encode("utf-8"), None, None
+    else:
+        pol, pol_blob, overlay, base_policy = load_policy_file(policy)
 
     models = {
         "sources": m.Source,

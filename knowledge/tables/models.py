@@ -8,13 +8,51 @@ from __future__ import annotations
 
 import datetime as dt
 from enum import Enum
-from typing import Any, Literal, Union
+from typing import Annotated, Any, Literal, Union
 
-from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic import AfterValidator, BaseModel, ConfigDict, Field, WithJsonSchema, model_validator
+
+from .constants import HEIGHT_CM_RANGE, IV_SITES, SEVERITY_ORDER, WEIGHT_KG_RANGE
 
 
 class Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True, use_enum_values=False)
+    model_config = ConfigDict(extra="forbid", frozen=True, use_enum_values=False, allow_inf_nan=False)
+
+
+# --------------------------------------------------------------------------------------------------
+# Date-times: the time-zone rule
+# --------------------------------------------------------------------------------------------------
+#: Every date-time of a case and a decision is the department's local wall-clock time, written without a
+#: UTC offset (``2026-12-02T09:00`` or ``2026-12-02 09:00``); a value with an offset (``+01:00``, ``Z``)
+#: is refused rather than silently converted. The published JSON Schema says exactly this (a pattern,
+#: not the ``date-time`` format, which requires an offset).
+LOCAL_DATE_TIME_PATTERN = r"^\d{4}-\d{2}-\d{2}[T ]\d{2}:\d{2}(:\d{2}(\.\d{1,6})?)?$"
+#: Years a date-time may fall in (the plans add and subtract hours and days; year 1 or 9999 overflows).
+YEAR_RANGE = (1900, 2200)
+
+
+def _local_time(value: dt.datetime) -> dt.datetime:
+    if value.tzinfo is not None:
+        raise ValueError("has a UTC offset; allowed: a local date-time without offset, such as 2026-12-02T09:00")
+    if not YEAR_RANGE[0] <= value.year <= YEAR_RANGE[1]:
+        raise ValueError(f"year {value.year} is out of range; allowed: years {YEAR_RANGE[0]} to {YEAR_RANGE[1]}")
+    return value
+
+
+def _local_date(value: dt.date) -> dt.date:
+    if isinstance(value, dt.datetime):
+        return _local_time(value)
+    if not YEAR_RANGE[0] <= value.year <= YEAR_RANGE[1]:
+        raise ValueError(f"year {value.year} is out of range; allowed: years {YEAR_RANGE[0]} to {YEAR_RANGE[1]}")
+    return value
+
+
+LocalDateTime = Annotated[dt.datetime, AfterValidator(_local_time), WithJsonSchema({
+    "type": "string", "pattern": LOCAL_DATE_TIME_PATTERN,
+    "description": "Local wall-clock date-time without UTC offset, e.g. 2026-12-02T09:00"})]
+LocalDateOrTime = Annotated[Union[dt.date, dt.datetime], AfterValidator(_local_date), WithJsonSchema({
+    "anyOf": [{"type": "string", "format": "date"}, {"type": "string", "pattern": LOCAL_DATE_TIME_PATTERN}],
+    "description": "Local date (2026-11-28) or date-time without UTC offset (2026-11-28T07:30)"})]
 
 
 # --------------------------------------------------------------------------------------------------
@@ -547,13 +585,15 @@ class Regimen(Strict):
     id: str = Field(description="Stable key")
     name: str = Field(description="Name shown to users")
     steps: list["RegimenStep"] = Field(description="Doses, each at hours before the exam")
-    minimum_lead_hours: float = Field(description="Least time before the exam the regimen needs", ge=0)
+    minimum_lead_hours: float = Field(description="Least time before the exam the regimen needs, h (0-48)", ge=0,
+                                      le=48)
     source: SourceRef = Field(description="Where the regimen is published")
 
 
 class RegimenStep(Strict):
-    hours_before: float | None = Field(description="Hours before the exam; null for 'now'", ge=0)
-    repeat_every_hours: float | None = Field(None, description="Repeat interval until the exam, hours", gt=0)
+    hours_before: float | None = Field(description="Hours before the exam (0-48); null for 'now'", ge=0, le=48)
+    repeat_every_hours: float | None = Field(None, description="Repeat interval until the exam, hours (0.5-24)",
+                                             ge=0.5, le=24)
     drug: str = Field(description="Generic drug name")
     dose: str = Field(description="Dose with unit, e.g. '50 mg'")
     route: Literal["oral", "intravenous"] = Field(description="oral or intravenous")
@@ -601,14 +641,17 @@ class Policy(Strict):
         description="Weeks to wait after iodinated contrast before radioiodine", ge=0, le=26
     )
     creatinine_max_age_days_outpatient: float = Field(
-        30, description="Oldest acceptable creatinine for a stable outpatient, days", gt=0
+        30, description="Oldest acceptable creatinine for a stable outpatient, days (more than 0, at most 365)",
+        gt=0, le=365
     )
     creatinine_max_age_days_inpatient: float = Field(
-        2, description="Oldest acceptable creatinine for an inpatient or acute illness, days", gt=0
+        2, description="Oldest acceptable creatinine for an inpatient or acute illness, days (more than 0, at most 30)",
+        gt=0, le=30
     )
-    iodine_g_per_gfr_max: float = Field(1.0, description="Flag when g iodine / absolute GFR reaches this", gt=0)
+    iodine_g_per_gfr_max: float = Field(1.0, description="Flag when g iodine / absolute GFR reaches this (0.1-5)",
+                                        ge=0.1, le=5)
     first_pass_iodine_g_per_gfr_max: float | None = Field(
-        None, description="Optional first-pass intra-arterial cap, g iodine / absolute GFR", gt=0
+        None, description="Optional first-pass intra-arterial cap, g iodine / absolute GFR (0.1-5)", ge=0.1, le=5
     )
     bsa_formula: Literal["du_bois", "mosteller"] = Field(
         "du_bois", description="Body surface area formula for the absolute GFR (du_bois 1916 or mosteller 1987)"
@@ -638,11 +681,30 @@ class Policy(Strict):
         False, description="EMA 2017 decision: intravenous linear gadolinium agents suspended, except the "
                            "hepatobiliary ones for liver imaging")
 
+    @model_validator(mode="after")
+    def _thresholds_in_order(self) -> "Policy":
+        """The renal rules read these thresholds as nested bands; a policy that orders them otherwise makes
+        a lower eGFR less restrictive (issue 9), so it is refused. See POLICY_ORDER."""
+        for low, high in POLICY_ORDER:
+            if getattr(self, low) > getattr(self, high):
+                raise ValueError(f"{low} ({getattr(self, low):g}) is above {high} ({getattr(self, high):g}); "
+                                 f"allowed: {low} at most {high}")
+        return self
+
     def number(self, name: str) -> float:
         value = getattr(self, name)
         if isinstance(value, bool) or not isinstance(value, (int, float)):
             raise KeyError(name)
         return float(value)
+
+
+#: Policy thresholds that must be ordered (first at most second). renal-hydrate-low-egfr acts below
+#: egfr_hydration_below, renal-consider-prophylaxis between it and egfr_prophylaxis_consider_below, and
+#: renal-hydrate-first-pass below egfr_first_pass_hydration_below for first-pass studies only: with the
+#: hydration threshold above either of the others, an eGFR in the gap would lose its renal precautions
+#: as it falls (tests/test_policy_strict.py sweeps every order).
+POLICY_ORDER = (("egfr_hydration_below", "egfr_prophylaxis_consider_below"),
+                ("egfr_hydration_below", "egfr_first_pass_hydration_below"))
 
 
 class Tables(Strict):
@@ -661,7 +723,7 @@ class Tables(Strict):
 class Creatinine(Strict):
     value: float = Field(description="Serum creatinine", gt=0)
     unit: Literal["mg/dL", "umol/L"] = Field(description="mg/dL or umol/L")
-    measured_on: dt.date | dt.datetime | None = Field(None, description="When the sample was taken")
+    measured_on: LocalDateOrTime | None = Field(None, description="When the sample was taken (local date or date-time)")
 
 
 class PriorReaction(Strict):
@@ -670,7 +732,7 @@ class PriorReaction(Strict):
         description="allergic_like or physiologic (immediate, within an hour), or delayed (hours to days, mostly "
                     "skin; severe = Stevens-Johnson syndrome / toxic epidermal necrolysis, DRESS or another severe "
                     "cutaneous adverse reaction)")
-    severity: Literal["mild", "moderate", "severe"] = Field(description="mild, moderate or severe")
+    severity: Literal[SEVERITY_ORDER[1:]] = Field(description="mild, moderate or severe")  # type: ignore[valid-type]
     agent: str | None = Field(None, description="The culprit agent's id, if known")
     despite_premedication: bool = Field(
         False, description="A breakthrough reaction: it happened although the patient had been premedicated")
@@ -678,16 +740,14 @@ class PriorReaction(Strict):
 
 class IVAccess(Strict):
     gauge: int = Field(description="Catheter gauge", ge=14, le=24)
-    site: Literal[
-        "antecubital", "forearm", "hand_or_wrist", "central_power_injectable", "central_not_power_rated"
-    ] = Field(description="Where the catheter is")
+    site: Literal[IV_SITES] = Field(description="Where the catheter is")  # type: ignore[valid-type]
 
 
 class Patient(Strict):
     age_years: float | None = Field(None, description="Age in years", ge=0, le=120)
     sex: Literal["female", "male"] | None = Field(None, description="Sex used by the eGFR equations")
-    weight_kg: float | None = Field(None, description="Body weight, kg", ge=0.5, le=350)
-    height_cm: float | None = Field(None, description="Height, cm", ge=30, le=250)
+    weight_kg: float | None = Field(None, description="Body weight, kg", ge=WEIGHT_KG_RANGE[0], le=WEIGHT_KG_RANGE[1])
+    height_cm: float | None = Field(None, description="Height, cm", ge=HEIGHT_CM_RANGE[0], le=HEIGHT_CM_RANGE[1])
     creatinine: Creatinine | None = Field(None, description="Serum creatinine")
     cystatin_c_mg_l: float | None = Field(None, description="Serum cystatin C, mg/L", gt=0)
     egfr: float | None = Field(None, description="eGFR entered directly, mL/min/1.73 m²", ge=1, le=200)
@@ -731,8 +791,8 @@ class Patient(Strict):
 class Case(Strict):
     exam: str = Field(description="Exam id from the exams table")
     patient: Patient = Field(default_factory=Patient, description="Patient factors")
-    scheduled_at: dt.datetime | None = Field(None, description="Exam date-time (ISO 8601, local)")
-    as_of: dt.datetime | None = Field(
+    scheduled_at: LocalDateTime | None = Field(None, description="Exam date-time (ISO 8601, local, no offset)")
+    as_of: LocalDateTime | None = Field(
         None, description="The time the decision is made for ('now'), for the time left before the exam and the "
                           "creatinine's age; the command line and the dashboard fill it in, the core never reads a clock")
     agent: str | None = Field(None, description="A requested agent id to plan for")
@@ -870,8 +930,8 @@ class HydrationPlanBlock(Strict):
     fluid: str = Field(description="IV fluid")
     rate_ml_h: float = Field(description="Infusion rate, mL/h")
     rate_ml_kg_h: float = Field(description="Rate per kg, mL/kg/h (policy)")
-    start_at: dt.datetime | None = Field(None, description="Start time (exam time − hours before)")
-    stop_at: dt.datetime | None = Field(None, description="Stop time (exam time + hours after)")
+    start_at: LocalDateTime | None = Field(None, description="Start time (exam time − hours before)")
+    stop_at: LocalDateTime | None = Field(None, description="Stop time (exam time + hours after)")
     volume_before_ml: float = Field(description="Volume before contrast, mL")
     volume_after_ml: float = Field(description="Volume after contrast, mL")
     total_ml: float = Field(description="Total volume, mL")
@@ -905,7 +965,7 @@ class RenalBlock(Strict):
 
 
 class ScheduleItem(Strict):
-    at: dt.datetime | None = Field(description="Clock time of the dose (null without an exam time)")
+    at: LocalDateTime | None = Field(description="Clock time of the dose (null without an exam time)")
     hours_before: float | None = Field(description="Hours before the exam")
     drug: str = Field(description="Generic drug name")
     dose: str = Field(description="Dose with unit")
@@ -926,9 +986,9 @@ class MetforminBlock(Strict):
     hold: bool
     takes_metformin: bool
     advice: str | None = Field(None, description="What to do about metformin")
-    hold_from: dt.datetime | None = Field(None, description="Stop metformin from this time (the exam time)")
+    hold_from: LocalDateTime | None = Field(None, description="Stop metformin from this time (the exam time)")
     recheck_after_hours: float | None = Field(None, description="Hours after contrast to re-check kidney function")
-    recheck_at: dt.datetime | None = Field(None, description="When kidney function is re-checked before restarting")
+    recheck_at: LocalDateTime | None = Field(None, description="When kidney function is re-checked before restarting")
 
 
 class Alert(Strict):
@@ -959,7 +1019,7 @@ class Decision(Strict):
     cautions: list[str]
     policy: str
     knowledge_version: str
-    as_of: dt.datetime | None = Field(None, description="The 'now' the times were worked out for (the case's as_of)")
+    as_of: LocalDateTime | None = Field(None, description="The 'now' the times were worked out for (the case's as_of)")
     policy_version: str | None = Field(
         None, description="Hash of the policy file (of an overlay and its base profile), to reproduce the decision")
     on_call: str | None = Field(None, description="The department's on-call radiologist contact line, if any")

@@ -15,7 +15,7 @@ from __future__ import annotations
 
 from typing import Any, Literal
 
-from pydantic import Field, PrivateAttr, ValidationError, field_validator, model_validator
+from pydantic import Field, PrivateAttr, StrictFloat, ValidationError, field_validator, model_validator
 
 from . import models as m
 from ..errors import KnowledgeError
@@ -37,7 +37,7 @@ class Formulary(m.Strict):
     agent: str = Field(description="Agent id from the agents table (`contrast-aid agents`)")
     label: str = Field(description="The department's display label (a generic name and strength, never a brand)",
                        min_length=1, max_length=80)
-    concentrations: list[float] = Field(
+    concentrations: list[StrictFloat] = Field(
         default_factory=list,
         description="Strengths held (mg I/mL for iodinated agents, else the catalogue's unit); empty: all strengths")
 
@@ -67,8 +67,8 @@ class Premedication(m.Strict):
 class Freshness(m.Strict):
     """How old a creatinine may be at the exam time."""
 
-    outpatient_days: float = Field(description="Stable outpatient, days", gt=0, le=365)
-    inpatient_days: float = Field(description="Inpatient or acute illness, days", gt=0, le=30)
+    outpatient_days: StrictFloat = Field(description="Stable outpatient, days", gt=0, le=365)
+    inpatient_days: StrictFloat = Field(description="Inpatient or acute illness, days", gt=0, le=30)
 
 
 class Overlay(m.Strict):
@@ -78,7 +78,8 @@ class Overlay(m.Strict):
     name: str = Field(description="Name shown to users", min_length=1)
     base: Literal["default", "esur-v10"] = Field(
         description="Bundled profile it starts from: default (North American consensus) or esur-v10 (European)")
-    thresholds: dict[str, float] = Field(
+    # strict numbers (as in a plain policy file): YAML's yes/no or "5" are not numbers
+    thresholds: dict[str, StrictFloat] = Field(
         default_factory=dict, description=f"Numeric policy settings to override; allowed: {', '.join(THRESHOLDS)}")
     creatinine_freshness: Freshness | None = Field(None, description="Creatinine freshness windows")
     premedication: Premedication | None = Field(None, description="Premedication regimens in use")
@@ -157,8 +158,8 @@ def merge_policy(base: m.Policy, ov: Overlay, filename: str) -> m.Policy:
         data["premedication_regimen"], data["premedication_accelerated_regimen"] = pm.elective[0], pm.accelerated
         if "elective_regimens" in data:  # tried in this order before the accelerated one
             data["elective_regimens"] = list(pm.elective)
-    try:
-        return m.Policy.model_validate(data)
+    try:  # strict, as a plain policy file is: YAML's yes/no or "5" are not numbers
+        return m.Policy.model_validate(data, strict=True)
     except ValidationError as exc:
         line = describe(exc, m.Policy)
         for name in ov.thresholds:  # name the overlay's own field
