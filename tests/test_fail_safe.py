@@ -84,7 +84,8 @@ def test_dashboard_shows_the_year_bound_next_to_the_exam_time():
     app.exam.select.value = "ct-angiography-aorta"
     app.exam.scheduled.value = "9999-12-31 20:00"
     assert app.decision is None and app.stale
-    assert any("scheduled_at" in e and "year 9999" in e for e in app.errors)
+    # the message names the field by its form label (issue 10: the user's words, not code paths)
+    assert any("Exam time" in e and "year 9999" in e for e in app.errors)
 
 
 # ---------------------------------------------------------------------------------------------- 2

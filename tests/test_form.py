@@ -15,7 +15,7 @@ from typing import Any, Literal
 import pytest
 from pydantic import Field
 
-from knowledge.decision.engine import parse_case
+from knowledge.decision.engine import parse_form_case as parse_case  # typed text: the form path
 from knowledge.present import form
 from knowledge.present.form import FieldSpec, case_specs, typed_case
 from knowledge.present.links import case_from_query, link_keys, query_from_case

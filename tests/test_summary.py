@@ -15,7 +15,8 @@ import datetime as dt
 
 import pytest
 
-from knowledge.decision.engine import decide, parse_case
+from knowledge.decision.engine import decide
+from knowledge.decision.engine import parse_form_case as parse_case  # link text: the form path
 from knowledge.present.links import case_from_query
 from knowledge.present.report import SHORT_NOTE_MAX_LINES, protocol_note_markdown, short_note
 from knowledge.present.summary import (clinical_verdict, clock, decision_changes, human_ago, human_duration,

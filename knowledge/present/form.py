@@ -223,6 +223,8 @@ def _spec(model: type[BaseModel], name: str, prefix: str) -> FieldSpec:
     path = f"{prefix}{name}"
     desc = f.description or name.replace("_", " ")
     ann, optional = _strip_none(f.annotation)
+    if _typing.get_origin(ann) is _typing.Annotated:  # e.g. the local date-time types of the case model
+        ann = _typing.get_args(ann)[0]
     label = LABELS.get(path, desc)
     default = None if f.is_required() else f.get_default(call_default_factory=True)
     common = dict(path=path, name=name, label=label, description=desc, optional=optional or not f.is_required(),
