@@ -144,3 +144,17 @@ def test_the_walker_sees_a_function_level_import(tmp_path):
     probe = tmp_path / "probe.py"
     probe.write_text("def f():\n    from ..decision.engine import decide\n", encoding="utf-8")
     assert imports_of("knowledge.tables.probe", probe, set(modules())) == {"knowledge.decision.engine"}
+
+
+def test_the_decision_is_short_named_stages():
+    # decide() is a pipeline of named stages (DEVELOPERS.md, "How data flows"); no stage of the decision
+    # layer grows past about 45 lines, so each can be read and tested on its own
+    long = []
+    for path in sorted((ROOT / "knowledge" / "decision").glob("*.py")):
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            if isinstance(node, ast.FunctionDef) and node.end_lineno - node.lineno + 1 > 45:
+                long.append(f"{path.name}:{node.name} ({node.end_lineno - node.lineno + 1} lines)")
+    assert long == []
+    decide = next(n for n in ast.walk(ast.parse((ROOT / "knowledge/decision/engine.py").read_text(encoding="utf-8")))
+                  if isinstance(n, ast.FunctionDef) and n.name == "decide")
+    assert decide.end_lineno - decide.lineno + 1 <= 30

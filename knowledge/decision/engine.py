@@ -390,52 +390,63 @@ def choose(case: m.Case, role: m.ExamRole, scored: list[_Scored], raised: _Raise
     ranked agent the exam lists for the role that is neither contraindicated nor the culprit of an earlier
     reaction."""
     ids = {s.agent.id: s for s in scored}
-    cx = m.Verdict.contraindicated
     if case.agent in ids:
-        s = ids[case.agent]
-        if s.verdict is cx:
-            blocking = {r.rule for r in s.reasons if r.verdict is cx}
-            text, rules, source = _why(s, cx)
-            if case.override_culprit and s.culprit and blocking <= CULPRIT_RULES:
-                raised.alert("stop", f"Override in force: {s.agent.name} is planned for the {_role_words(role)} "
-                             f"although {text[0].lower() + text[1:]} The override was asked for explicitly; the "
-                             "supervising radiologist must confirm it, with reaction treatment ready.",
-                             "override-culprit", source or _CULPRIT_SOURCE)
-                return s.agent.id
-            alt = next((o for o in scored if o.verdict is not cx and not o.culprit and o.agent.id in role.agents),
-                       None)
-            tail = (f" The best alternative is {alt.agent.name} ({alt.verdict.value.replace('_', ' ')})."
-                    if alt else " No agent of this role can be used.")
-            raised.alert("stop", f"{s.agent.name} was requested for the {_role_words(role)} but is contraindicated: "
-                         f"{text} No dose is planned for it.{tail}", rules, source)
-            return None
-        if s.verdict is m.Verdict.not_advised:
-            text, rules, source = _why(s, m.Verdict.not_advised)
-            raised.alert("warn", f"{s.agent.name} was requested for the {_role_words(role)} but is not advised: "
-                         f"{text}", rules, source)
-        return s.agent.id
+        return _choose_requested(case, role, ids[case.agent], scored, raised)
     # the default is one of the agents the exam lists for the role (never water in a gas-distension role)
+    cx = m.Verdict.contraindicated
     best = next((o for o in scored if o.verdict is not cx and not o.culprit and o.agent.id in role.agents), None)
     if best is None:
         if scored:
-            rs = [r for o in scored if o.agent.id in role.agents for r in o.reasons
-                  if r.verdict is cx] or [r for o in scored for r in o.reasons if r.verdict is cx]
-            why = "; ".join(dict.fromkeys(r.text for r in rs)) or "every usable agent caused an earlier reaction"
-            source = "; ".join(dict.fromkeys(r.source for r in rs)) or _CULPRIT_SOURCE
-            rules = ", ".join(dict.fromkeys(r.rule for r in rs)) or "reaction-culprit-agent"
-            if role.required:
-                reason = f"No agent can be used for the {_role_words(role)}: {why}"
-                raised.cannot.append(reason)
-                raised.alert("stop", f"The exam as requested cannot be done with contrast. {reason}", rules, source)
-            else:
-                raised.alert("warn", f"No agent can be used for the optional {_role_words(role)}: {why}",
-                             rules, source)
+            _no_agent_for(role, scored, raised)
         return None
     if best.verdict is m.Verdict.not_advised and case.agent is None:
         text, rules, source = _why(best, m.Verdict.not_advised)
         raised.alert("warn", f"The best available agent for the {_role_words(role)}, {best.agent.name}, is not "
                      f"advised: {text}", rules, source)
     return best.agent.id
+
+
+def _choose_requested(case: m.Case, role: m.ExamRole, s: _Scored, scored: list[_Scored],
+                      raised: _Raised) -> str | None:
+    """A requested agent: planned unless contraindicated (stop alert; the culprit override excepted);
+    a not-advised request is planned with a warn alert."""
+    cx = m.Verdict.contraindicated
+    if s.verdict is cx:
+        blocking = {r.rule for r in s.reasons if r.verdict is cx}
+        text, rules, source = _why(s, cx)
+        if case.override_culprit and s.culprit and blocking <= CULPRIT_RULES:
+            raised.alert("stop", f"Override in force: {s.agent.name} is planned for the {_role_words(role)} "
+                         f"although {text[0].lower() + text[1:]} The override was asked for explicitly; the "
+                         "supervising radiologist must confirm it, with reaction treatment ready.",
+                         "override-culprit", source or _CULPRIT_SOURCE)
+            return s.agent.id
+        alt = next((o for o in scored if o.verdict is not cx and not o.culprit and o.agent.id in role.agents), None)
+        tail = (f" The best alternative is {alt.agent.name} ({alt.verdict.value.replace('_', ' ')})."
+                if alt else " No agent of this role can be used.")
+        raised.alert("stop", f"{s.agent.name} was requested for the {_role_words(role)} but is contraindicated: "
+                     f"{text} No dose is planned for it.{tail}", rules, source)
+        return None
+    if s.verdict is m.Verdict.not_advised:
+        text, rules, source = _why(s, m.Verdict.not_advised)
+        raised.alert("warn", f"{s.agent.name} was requested for the {_role_words(role)} but is not advised: "
+                     f"{text}", rules, source)
+    return s.agent.id
+
+
+def _no_agent_for(role: m.ExamRole, scored: list[_Scored], raised: _Raised) -> None:
+    """No agent can serve the role: a required role stops the exam as requested, an optional one warns."""
+    cx = m.Verdict.contraindicated
+    rs = [r for o in scored if o.agent.id in role.agents for r in o.reasons
+          if r.verdict is cx] or [r for o in scored for r in o.reasons if r.verdict is cx]
+    why = "; ".join(dict.fromkeys(r.text for r in rs)) or "every usable agent caused an earlier reaction"
+    source = "; ".join(dict.fromkeys(r.source for r in rs)) or _CULPRIT_SOURCE
+    rules = ", ".join(dict.fromkeys(r.rule for r in rs)) or "reaction-culprit-agent"
+    if role.required:
+        reason = f"No agent can be used for the {_role_words(role)}: {why}"
+        raised.cannot.append(reason)
+        raised.alert("stop", f"The exam as requested cannot be done with contrast. {reason}", rules, source)
+    else:
+        raised.alert("warn", f"No agent can be used for the optional {_role_words(role)}: {why}", rules, source)
 
 
 def score_role(case: m.Case, k: Knowledge, exam: m.Exam, index: int, role: m.ExamRole,

@@ -96,6 +96,26 @@ def dose_block(agent: m.Agent, protocol: m.DoseProtocol | None, route: m.Route, 
         iodine_delivery_rate_target_g_s=protocol.iodine_delivery_rate_g_s if protocol else None)
 
 
+def _child_volume(pp: m.PaediatricProtocol, adult_max: float, conc: float, weight_kg: float | None,
+                  planned_volume_ml: float | None, warnings: list[str]) -> tuple[float | None, str]:
+    """A child's volume: mL/kg of the protocol strength, capped per kg and at the adult maximum."""
+    volume = cap = None
+    if weight_kg is None:
+        basis = "not worked out: a child's dose is per kg and no weight was given"
+        warnings.append("Weight is needed for a child's dose (mL/kg)")
+    else:
+        volume, cap = paediatric.child_volume(weight_kg, pp.ml_per_kg, pp.max_ml_per_kg, adult_max,
+                                              pp.concentration_mg_i_ml, conc)
+        volume = round(volume, 1)
+        basis = (f"{pp.ml_per_kg:g} mL/kg × {weight_kg:g} kg (at {pp.concentration_mg_i_ml:g} mg I/mL), "
+                 f"at most {cap:.0f} mL")
+    if planned_volume_ml is not None:
+        volume, basis = float(planned_volume_ml), "planned volume"
+        if cap is not None and volume > cap:
+            warnings.append(f"Planned {volume:g} mL is above the child's maximum of {cap:.0f} mL")
+    return volume, basis
+
+
 def child_dose_block(agent: m.Agent, protocol: m.DoseProtocol, *, weight_kg: float | None,
                      planned_volume_ml: float | None, planned_flow_ml_s: float | None,
                      concentration_mg_i_ml: float | None, iv_access: m.IVAccess | None, cite: Any,
@@ -115,20 +135,7 @@ def child_dose_block(agent: m.Agent, protocol: m.DoseProtocol, *, weight_kg: flo
     warnings = [f"Patient under {paediatric.ADULT_AGE_YEARS:g}: paediatric protocol ({pp.ml_per_kg:g} mL/kg of "
                 f"{pp.concentration_mg_i_ml:g} mg I/mL, at most {pp.max_ml_per_kg:g} mL/kg and never above the adult "
                 f"{adult_max:g} mL; ACR Manual, {pp.certainty.value.replace('_', ' ')}) instead of the adult protocol"]
-    volume = cap = None
-    if weight_kg is None:
-        basis = "not worked out: a child's dose is per kg and no weight was given"
-        warnings.append("Weight is needed for a child's dose (mL/kg)")
-    else:
-        volume, cap = paediatric.child_volume(weight_kg, pp.ml_per_kg, pp.max_ml_per_kg, adult_max,
-                                              pp.concentration_mg_i_ml, conc)
-        volume = round(volume, 1)
-        basis = (f"{pp.ml_per_kg:g} mL/kg × {weight_kg:g} kg (at {pp.concentration_mg_i_ml:g} mg I/mL), "
-                 f"at most {cap:.0f} mL")
-    if planned_volume_ml is not None:
-        volume, basis = float(planned_volume_ml), "planned volume"
-        if cap is not None and volume > cap:
-            warnings.append(f"Planned {volume:g} mL is above the child's maximum of {cap:.0f} mL")
+    volume, basis = _child_volume(pp, adult_max, conc, weight_kg, planned_volume_ml, warnings)
     gauge = iv_access.gauge if iv_access else None
     site = iv_access.site if iv_access else None
     flow, hand, why = paediatric.child_flow(protocol.flow_ml_s, gauge, site)
@@ -439,67 +446,84 @@ def plan_metformin(case: m.Case, met: m.MetforminBlock) -> m.MetforminBlock:
 
 def _dose_limits(doses: list[tuple[m.ExamRole, m.DoseBlock]], p: m.Patient, pol: m.Policy,
                  agfr: float | None, catheter_study: bool = False) -> m.DoseLimits:
-    msgs: list[str] = []
+    """The renal dose limits of the planned doses: g iodine / GFR, the first-pass caps, Cigarroa."""
+    grams = [d.iodine_g for _, d in doses if d.iodine_g is not None]
+    iodine = sum(grams) if grams else None
     if p.dialysis is m.Dialysis.dialysis_anuric:
         # no kidney function to protect (ACR-NKF 2020): no g iodine / GFR, Cigarroa or "reduce the dose" advice
-        grams = [d.iodine_g for _, d in doses if d.iodine_g is not None]
-        return m.DoseLimits(iodine_g=_r(sum(grams)) if grams else None, iodine_g_per_gfr_max=pol.iodine_g_per_gfr_max,
+        return m.DoseLimits(iodine_g=_r(iodine), iodine_g_per_gfr_max=pol.iodine_g_per_gfr_max,
                             first_pass_iodine_g_per_gfr_max=pol.first_pass_iodine_g_per_gfr_max,
                             messages=["Anuric on dialysis: no kidney function to protect - the kidney dose limits "
                                       "(g iodine / GFR, Cigarroa) do not apply"])
-    grams = [d.iodine_g for _, d in doses if d.iodine_g is not None]
-    iodine = sum(grams) if grams else None
-    ratio = exceeded = vol_ratio = iodine_max = None
-    if agfr is not None:
-        iodine_max = _r(pol.iodine_g_per_gfr_max * max(agfr, limits.GFR_ML_MIN_RANGE[0]))
-    if iodine is not None and agfr is not None:
-        # rounded first, so the ratio shown is the ratio compared with the policy level
-        ratio = round(limits.iodine_gfr_ratio(iodine, max(agfr, limits.GFR_ML_MIN_RANGE[0])), 2)
-        exceeded = ratio >= pol.iodine_g_per_gfr_max
-        if exceeded:
-            msgs.append(f"Iodine {iodine:g} g for an absolute GFR of {agfr:g} mL/min: ratio {ratio:.2f} reaches "
-                        f"the policy level {pol.iodine_g_per_gfr_max:g} - consider a smaller dose")
-    elif iodine is not None:
-        msgs.append("g iodine / GFR not worked out: needs eGFR, weight and height")
-    first = [(role, d) for role, d in doses if role.renal_exposure is m.RenalExposure.first_pass]
-    if first and agfr is not None:
-        fp_iodine = sum(d.iodine_g or 0 for _, d in first)
-        fp_volume = sum(d.volume_ml or 0 for _, d in first)
-        vol_ratio = round(limits.volume_gfr_ratio(fp_volume, max(agfr, limits.GFR_ML_MIN_RANGE[0])), 2)
-        cap = pol.first_pass_iodine_g_per_gfr_max
-        if cap is not None:
-            fp_ratio = round(limits.iodine_gfr_ratio(fp_iodine, max(agfr, limits.GFR_ML_MIN_RANGE[0])), 2)
-            if fp_ratio >= cap:
-                exceeded = True
-                msgs.append(f"First-pass dose: {fp_ratio:.2f} g iodine per mL/min GFR reaches the policy cap {cap:g} "
-                            "(ESUR)")
-    cig = cat_vol = cig_exceeded = None
-    catheter = [d for role, d in doses if role.catheter_study]
-    if catheter_study and not catheter:
-        if p.weight_kg is not None and p.creatinine is not None:
-            scr = kidney.creatinine_to_mg_dl(p.creatinine.value, p.creatinine.unit)
-            cig = round(limits.cigarroa_max_volume_ml(p.weight_kg, scr))
-            top = f" and at most {iodine_max:g} g iodine (g iodine / GFR {pol.iodine_g_per_gfr_max:g})" if iodine_max else ""
-            msgs.append(f"Catheter study: any iodinated contrast (including a top-up of a carbon dioxide study) "
-                        f"stays within the Cigarroa maximum of {cig:g} mL{top}")
-        else:
-            msgs.append("Cigarroa limit not worked out: needs weight and serum creatinine")
-    if catheter:
-        vols = [d.volume_ml for d in catheter if d.volume_ml is not None]
-        cat_vol = sum(vols) if vols else None
-        if p.weight_kg is not None and p.creatinine is not None:
-            scr = kidney.creatinine_to_mg_dl(p.creatinine.value, p.creatinine.unit)
-            cig = round(limits.cigarroa_max_volume_ml(p.weight_kg, scr))
-            if cat_vol is not None:
-                cig_exceeded = cat_vol > cig
-                if cig_exceeded:
-                    msgs.append(f"Planned {cat_vol:g} mL is above the Cigarroa maximum of {cig:g} mL "
-                                f"(5 mL × {p.weight_kg:g} kg / creatinine {scr:.2f} mg/dL, at most 300 mL): "
-                                "reduce the volume")
-        else:
-            msgs.append("Cigarroa limit not worked out: needs weight and serum creatinine")
+    msgs: list[str] = []
+    iodine_max = _r(pol.iodine_g_per_gfr_max * max(agfr, limits.GFR_ML_MIN_RANGE[0])) if agfr is not None else None
+    ratio, exceeded = _gfr_ratio_limit(iodine, agfr, pol, msgs)
+    vol_ratio, first_pass_exceeded = _first_pass_limits(doses, agfr, pol, msgs)
+    exceeded = True if first_pass_exceeded else exceeded
+    cig, cat_vol, cig_exceeded = _cigarroa_limit(doses, p, pol, iodine_max, catheter_study, msgs)
     return m.DoseLimits(
         iodine_g=_r(iodine), iodine_g_per_gfr=_r(ratio, 2), iodine_g_per_gfr_max=pol.iodine_g_per_gfr_max,
         iodine_g_per_gfr_exceeded=exceeded, first_pass_iodine_g_per_gfr_max=pol.first_pass_iodine_g_per_gfr_max,
         volume_ml_per_gfr=vol_ratio, cigarroa_max_ml=cig, catheter_volume_ml=_r(cat_vol), iodine_g_max=iodine_max,
         cigarroa_exceeded=cig_exceeded, messages=msgs)
+
+
+def _gfr_ratio_limit(iodine: float | None, agfr: float | None, pol: m.Policy,
+                     msgs: list[str]) -> tuple[float | None, bool | None]:
+    """g iodine / absolute GFR against the policy level (rounded first: the ratio shown is the one compared)."""
+    if iodine is None:
+        return None, None
+    if agfr is None:
+        msgs.append("g iodine / GFR not worked out: needs eGFR, weight and height")
+        return None, None
+    ratio = round(limits.iodine_gfr_ratio(iodine, max(agfr, limits.GFR_ML_MIN_RANGE[0])), 2)
+    exceeded = ratio >= pol.iodine_g_per_gfr_max
+    if exceeded:
+        msgs.append(f"Iodine {iodine:g} g for an absolute GFR of {agfr:g} mL/min: ratio {ratio:.2f} reaches "
+                    f"the policy level {pol.iodine_g_per_gfr_max:g} - consider a smaller dose")
+    return ratio, exceeded
+
+
+def _first_pass_limits(doses: list, agfr: float | None, pol: m.Policy,
+                       msgs: list[str]) -> tuple[float | None, bool]:
+    """mL / GFR of the first-pass doses, and the policy's first-pass g iodine / GFR cap (ESUR), if set."""
+    first = [(role, d) for role, d in doses if role.renal_exposure is m.RenalExposure.first_pass]
+    if not first or agfr is None:
+        return None, False
+    gfr = max(agfr, limits.GFR_ML_MIN_RANGE[0])
+    fp_iodine = sum(d.iodine_g or 0 for _, d in first)
+    vol_ratio = round(limits.volume_gfr_ratio(sum(d.volume_ml or 0 for _, d in first), gfr), 2)
+    cap = pol.first_pass_iodine_g_per_gfr_max
+    if cap is None:
+        return vol_ratio, False
+    fp_ratio = round(limits.iodine_gfr_ratio(fp_iodine, gfr), 2)
+    if fp_ratio < cap:
+        return vol_ratio, False
+    msgs.append(f"First-pass dose: {fp_ratio:.2f} g iodine per mL/min GFR reaches the policy cap {cap:g} (ESUR)")
+    return vol_ratio, True
+
+
+def _cigarroa_limit(doses: list, p: m.Patient, pol: m.Policy, iodine_max: float | None, catheter_study: bool,
+                    msgs: list[str]) -> tuple[float | None, float | None, bool | None]:
+    """The Cigarroa maximum for every catheter study (before any volume is planned), and the planned volume."""
+    catheter = [d for role, d in doses if role.catheter_study]
+    if not catheter and not catheter_study:
+        return None, None, None
+    if p.weight_kg is None or p.creatinine is None:
+        msgs.append("Cigarroa limit not worked out: needs weight and serum creatinine")
+        vols = [d.volume_ml for d in catheter if d.volume_ml is not None]
+        return None, (sum(vols) if vols else None), None
+    scr = kidney.creatinine_to_mg_dl(p.creatinine.value, p.creatinine.unit)
+    cig = round(limits.cigarroa_max_volume_ml(p.weight_kg, scr))
+    if not catheter:
+        top = f" and at most {iodine_max:g} g iodine (g iodine / GFR {pol.iodine_g_per_gfr_max:g})" if iodine_max else ""
+        msgs.append(f"Catheter study: any iodinated contrast (including a top-up of a carbon dioxide study) "
+                    f"stays within the Cigarroa maximum of {cig:g} mL{top}")
+        return cig, None, None
+    vols = [d.volume_ml for d in catheter if d.volume_ml is not None]
+    cat_vol = sum(vols) if vols else None
+    exceeded = None if cat_vol is None else cat_vol > cig
+    if exceeded:
+        msgs.append(f"Planned {cat_vol:g} mL is above the Cigarroa maximum of {cig:g} mL "
+                    f"(5 mL × {p.weight_kg:g} kg / creatinine {scr:.2f} mg/dL, at most 300 mL): reduce the volume")
+    return cig, cat_vol, exceeded
