@@ -37,8 +37,13 @@ TEMPLATE = "contrast-aid"
 HOST = "127.0.0.1"
 POLICY_ENV = "CONTRAST_AID_POLICY"
 READY_TIMEOUT_S = 120.0
-# A static file Voila always serves; fetching it proves the server answers without starting a kernel.
-READY_PROBE = "voila/static/voila.js"
+# The health check (widgets/server.py): fetching it proves the server answers without starting a kernel.
+READY_PROBE = "contrast-aid/health"
+#: Defaults of ``contrast-aid serve``: a kernel with no browser connected is shut down once it has been
+#: idle this long (checked every CULL_INTERVAL_S); one a browser is connected to is never culled.
+CULL_IDLE_S = 120
+CULL_INTERVAL_S = 30
+BASE_URL = "/"
 
 
 def _package_dir() -> Path:
@@ -59,12 +64,23 @@ def template_root() -> Path:
     return _package_dir() / "templates"
 
 
-def url_for(port: int) -> str:
-    return f"http://{HOST}:{port}/"
+def url_for(port: int, base_url: str = BASE_URL) -> str:
+    return f"http://{HOST}:{port}{normal_base_url(base_url)}"
 
 
-def voila_arguments(port: int) -> list[str]:
-    """Voila's own command-line arguments: fixed port, local only, no browser, our offline template."""
+def normal_base_url(base_url: str | None) -> str:
+    """``app``, ``/app`` or ``/app/`` -> ``/app/``; empty -> ``/``."""
+    parts = [p for p in (base_url or "/").split("/") if p]
+    for p in parts:
+        if p in (".", "..") or not all(c.isalnum() or c in "-_.~" for c in p):
+            raise ValueError(f"base-url: {base_url!r} is not a URL path; allowed letters, digits, - _ . ~ and /")
+    return "/" + "".join(p + "/" for p in parts)
+
+
+def voila_arguments(port: int, cull_idle_seconds: int = CULL_IDLE_S, cull_interval_seconds: int = CULL_INTERVAL_S,
+                    base_url: str = BASE_URL, secure_cookies: bool = False) -> list[str]:
+    """Voila's own command-line arguments: fixed port, local only, no browser, our offline template,
+    idle kernels without a browser culled, no template or theme from the URL."""
     return [
         str(notebook_path()),
         "--no-browser",
@@ -75,7 +91,33 @@ def voila_arguments(port: int) -> list[str]:
         f"--template={TEMPLATE}",
         "--theme=light",
         "--VoilaConfiguration.show_tracebacks=False",
+        # ?template= / ?theme= on the URL must not change what the department serves
+        "--VoilaConfiguration.allow_template_override=NO",
+        "--VoilaConfiguration.allow_theme_override=NO",
+        f"--Voila.base_url={normal_base_url(base_url)}",
+        # Sessions end: a kernel no browser is connected to is shut down after this idle time.
+        f"--MappingKernelManager.cull_idle_timeout={int(cull_idle_seconds)}",
+        f"--MappingKernelManager.cull_interval={int(cull_interval_seconds)}",
+        "--MappingKernelManager.cull_connected=False",
+        "--MappingKernelManager.cull_busy=False",
+        f"--ContrastAidVoila.secure_cookies={bool(secure_cookies)}",
     ]
+
+
+def _voila_data_dirs() -> list[str]:
+    """Voila's own data folder (its base templates, labextensions) when Jupyter would not look there.
+
+    Jupyter searches ``sys.prefix/share/jupyter``; in a virtual environment made with
+    ``--system-site-packages`` Voila's files are under the base interpreter's prefix instead, and the
+    page fails with ``TemplateNotFound: lab/index.html.j2``.
+    """
+    if sys.prefix == sys.base_prefix:
+        return []
+    base = Path(sys.base_prefix) / "share" / "jupyter"
+    if (base / "voila" / "templates" / "lab").is_dir() and not (
+            Path(sys.prefix) / "share" / "jupyter" / "voila" / "templates" / "lab").is_dir():
+        return [str(base)]
+    return []
 
 
 def voila_environment(policy: str | os.PathLike | None, base: dict[str, str] | None = None) -> dict[str, str]:
@@ -84,6 +126,7 @@ def voila_environment(policy: str | os.PathLike | None, base: dict[str, str] | N
     paths = [str(template_root())]
     if env.get("JUPYTER_PATH"):
         paths.append(env["JUPYTER_PATH"])
+    paths += _voila_data_dirs()
     env["JUPYTER_PATH"] = os.pathsep.join(paths)
     if policy:
         env[POLICY_ENV] = str(Path(policy).resolve())
@@ -94,7 +137,7 @@ def voila_environment(policy: str | os.PathLike | None, base: dict[str, str] | N
     return env
 
 
-def voila_command(port: int, policy: str | os.PathLike | None) -> list[str]:
+def voila_command(port: int, policy: str | os.PathLike | None, **options) -> list[str]:
     """The command that runs Voila on the dashboard: ``python -m widgets.serve [--policy P] -- ...``.
 
     The launcher sets the environment itself (template path, policy), so the command runs the same
@@ -104,7 +147,7 @@ def voila_command(port: int, policy: str | os.PathLike | None) -> list[str]:
     cmd = [sys.executable, "-m", "widgets.serve"]
     if policy:
         cmd += ["--policy", str(Path(policy).resolve())]
-    return cmd + ["--", *voila_arguments(port)]
+    return cmd + ["--", *voila_arguments(port, **options)]
 
 
 def check_policy(policy: str | os.PathLike | None) -> str | None:
@@ -122,9 +165,10 @@ def check_policy(policy: str | os.PathLike | None) -> str | None:
     return None
 
 
-def wait_until_ready(port: int, proc: subprocess.Popen | None = None, timeout: float = READY_TIMEOUT_S) -> bool:
+def wait_until_ready(port: int, proc: subprocess.Popen | None = None, timeout: float = READY_TIMEOUT_S,
+                     base_url: str = BASE_URL) -> bool:
     """Poll the server until it answers (True), the process exits or the timeout passes (False)."""
-    probe = url_for(port) + READY_PROBE
+    probe = url_for(port, base_url) + READY_PROBE
     deadline = time.monotonic() + timeout
     while time.monotonic() < deadline:
         if proc is not None and proc.poll() is not None:
@@ -162,15 +206,28 @@ def _port_free(port: int) -> bool:
     return True
 
 
-def serve(port: int, policy: str | None, open_browser: bool = False) -> int:
+def serve(port: int, policy: str | None, open_browser: bool = False, *, cull_idle_seconds: int = CULL_IDLE_S,
+          cull_interval_seconds: int = CULL_INTERVAL_S, base_url: str = BASE_URL, secure_cookies: bool = False) -> int:
     """Run the dashboard until interrupted. Prints the URL once the server answers. Returns an exit code.
 
-    2: the policy file does not load, or the port is not usable; 1: Voila failed to start or stopped
-    with an error; 0: stopped by the user (Ctrl-C) or Voila exited cleanly.
+    2: the policy file does not load, the port is not usable or an option is out of range; 1: Voila failed
+    to start or stopped with an error; 0: stopped by the user (Ctrl-C) or Voila exited cleanly.
     """
     if not (0 < int(port) < 65536):
         print(f"port: {port} is not a TCP port; allowed 1-65535", file=sys.stderr)
         return 2
+    for name, value, low in (("cull-idle-seconds", cull_idle_seconds, 10),
+                             ("cull-interval-seconds", cull_interval_seconds, 1)):
+        if not (low <= int(value) <= 86_400):
+            print(f"{name}: {value} is out of range; allowed {low}-86400 seconds", file=sys.stderr)
+            return 2
+    try:
+        base_url = normal_base_url(base_url)
+    except ValueError as exc:
+        print(str(exc), file=sys.stderr)
+        return 2
+    options = dict(cull_idle_seconds=int(cull_idle_seconds), cull_interval_seconds=int(cull_interval_seconds),
+                   base_url=base_url, secure_cookies=bool(secure_cookies))
     policy = policy or os.environ.get(POLICY_ENV) or None
     problem = check_policy(policy)
     if problem:
@@ -180,14 +237,14 @@ def serve(port: int, policy: str | None, open_browser: bool = False) -> int:
         print(f"port: {port} is already in use on {HOST}; choose another with --port", file=sys.stderr)
         return 2
     try:
-        cmd = voila_command(port, policy)
+        cmd = voila_command(port, policy, **options)
     except RuntimeError as exc:
         print(str(exc), file=sys.stderr)
         return 1
     proc = subprocess.Popen(cmd, env=voila_environment(policy))
     previous = _stop_on_sigterm()
     try:
-        if not wait_until_ready(port, proc):
+        if not wait_until_ready(port, proc, base_url=base_url):
             code = proc.poll()
             stop(proc)
             print(
@@ -196,7 +253,7 @@ def serve(port: int, policy: str | None, open_browser: bool = False) -> int:
                 file=sys.stderr,
             )
             return 1
-        url = url_for(port)
+        url = url_for(port, base_url)
         print(f"contrast-aid dashboard: {url}  (Ctrl-C stops it)", flush=True)
         if open_browser:
             import webbrowser
@@ -238,7 +295,7 @@ def _launch(argv: list[str]) -> int:
     os.environ.update(env)
     if POLICY_ENV not in env:
         os.environ.pop(POLICY_ENV, None)
-    from voila.app import main
+    from widgets.server import main
 
     sys.argv = ["voila", *args]
     return main(argv=args) or 0

@@ -298,7 +298,9 @@ def cmd_knowledge_facts(args: argparse.Namespace) -> int:
 def cmd_serve(args: argparse.Namespace) -> int:
     from widgets.serve import serve  # lazy: the domain core never imports the UI
 
-    return serve(args.port, args.policy)
+    return serve(args.port, args.policy, cull_idle_seconds=args.cull_idle_seconds,
+                 cull_interval_seconds=args.cull_interval_seconds, base_url=args.base_url,
+                 secure_cookies=args.secure_cookies)
 
 
 # ----------------------------------------------------------------------------- parser
@@ -353,6 +355,12 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = with_policy(sub.add_parser("serve", help="serve the dashboard with Voila (prints the URL)"))
     p.add_argument("--port", type=int, default=8866, metavar="N")
+    p.add_argument("--cull-idle-seconds", type=int, default=120, metavar="N",
+                   help="shut a kernel down once no browser is connected and it has been idle N s (default 120)")
+    p.add_argument("--cull-interval-seconds", type=int, default=30, metavar="N",
+                   help="check for such kernels every N s (default 30)")
+    p.add_argument("--base-url", default="/", metavar="PATH", help="serve under PATH, e.g. behind a reverse proxy")
+    p.add_argument("--secure-cookies", action="store_true", help="mark cookies Secure (TLS at a reverse proxy)")
     p.set_defaults(func=cmd_serve)
 
     add_dose_parser(sub)

@@ -45,7 +45,7 @@ def test_policy_reaches_the_voila_environment(tmp_path):
     assert cmd[cmd.index("--policy") + 1] == str(policy.resolve())
     env = serve.voila_environment(policy, base={"JUPYTER_PATH": "/elsewhere"})
     assert env["CONTRAST_AID_POLICY"] == str(policy.resolve())
-    assert env["JUPYTER_PATH"].split(":") == [str(serve.template_root()), "/elsewhere"]
+    assert env["JUPYTER_PATH"].split(":")[:2] == [str(serve.template_root()), "/elsewhere"]
     assert "CONTRAST_AID_POLICY" not in serve.voila_environment(None, base={"CONTRAST_AID_POLICY": "x"})
 
 
