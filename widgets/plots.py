@@ -27,8 +27,10 @@ from .style import BAND_COLOUR, BAND_TEXT, TIMELINE_COLOUR, VERDICT_MARK
 WIDTH = 640
 EGFR_MAX = 130.0
 PLOTLY_MIME = "application/vnd.plotly.v1+json"
-CONFIG = {"displaylogo": False, "responsive": False,
-          "modeBarButtonsToRemove": ["select2d", "lasso2d", "autoScale2d"]}
+# No logo link and nothing that sends the data off the server (cloud upload, "edit in chart studio").
+CONFIG = {"displaylogo": False, "responsive": False, "showSendToCloud": False, "showEditInChartStudio": False,
+          "showLink": False,
+          "modeBarButtonsToRemove": ["select2d", "lasso2d", "autoScale2d", "sendDataToCloud", "editInChartStudio"]}
 
 
 def plot_output() -> w.Output:

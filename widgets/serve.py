@@ -100,6 +100,7 @@ def voila_arguments(port: int, cull_idle_seconds: int = CULL_IDLE_S, cull_interv
         f"--MappingKernelManager.cull_interval={int(cull_interval_seconds)}",
         "--MappingKernelManager.cull_connected=False",
         "--MappingKernelManager.cull_busy=False",
+        "--VoilaConfiguration.multi_kernel_manager_class=widgets.server.KernelManager",
         f"--ContrastAidVoila.secure_cookies={bool(secure_cookies)}",
     ]
 

@@ -39,7 +39,9 @@ import re
 import tornado.web
 from jupyter_server.utils import url_path_join
 from traitlets import Bool, Unicode
+from jupyter_server.services.kernels.kernelmanager import AsyncMappingKernelManager
 from voila.app import Voila
+from voila.static_file_handler import AllowListFileHandler
 from voila.static_file_handler import TemplateStaticFileHandler
 from voila.tornado.handler import TornadoVoilaHandler
 
@@ -76,7 +78,18 @@ def redact(text: str) -> str:
     return KERNEL_ID.sub("<kernel>", text)
 
 
+_formatter = logging.Formatter()
+
+
 class _RedactingRecord(logging.LogRecord):
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        # a traceback is formatted once, here, so the handler's formatter prints the redacted text
+        if self.exc_info:
+            self.exc_text = redact(_formatter.formatException(self.exc_info))
+        if self.stack_info:
+            self.stack_info = redact(self.stack_info)
+
     def getMessage(self) -> str:  # noqa: N802 (logging's name)
         return redact(super().getMessage())
 
@@ -163,6 +176,16 @@ class TemplateFiles(TemplateStaticFileHandler):
             raise tornado.web.HTTPError(404) from None
 
 
+class KernelManager(AsyncMappingKernelManager):
+    """Jupyter's kernel manager; the cull check skips a kernel its page has just shut down (jupyter_server
+    2.x logs a KeyError traceback when a tab-close shutdown and a cull check cross)."""
+
+    async def cull_kernel_if_idle(self, kernel_id):
+        if kernel_id not in self._kernels:
+            return None
+        return await super().cull_kernel_if_idle(kernel_id)
+
+
 class ContrastAidVoila(Voila):
     """Voila serving the one dashboard notebook, as described in the module docstring."""
 
@@ -204,8 +227,8 @@ class ContrastAidVoila(Voila):
                 handlers.append((self.server_url, DashboardHandler, *spec[2:]))
             elif handler is TemplateStaticFileHandler:
                 handlers.append((pattern, TemplateFiles, *spec[2:]))
-            elif pattern.rstrip("/").endswith(("/login", "/logout")):
-                continue
+            elif pattern.rstrip("/").endswith(("/login", "/logout")) or handler is AllowListFileHandler:
+                continue  # no login page; no files from the notebook's folder (the page needs none)
             else:
                 handlers.append(spec)
         handlers.insert(0, (url_path_join(self.server_url, HEALTH_PATH), HealthHandler))
