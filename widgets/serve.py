@@ -178,6 +178,8 @@ def wait_until_ready(port: int, proc: subprocess.Popen | None = None, timeout: f
             with urllib.request.urlopen(probe, timeout=2) as resp:
                 if resp.status == 200:
                     return True
+        except urllib.error.HTTPError:
+            return True  # it answers (a plain Voila, as the benchmarks start one, has no health check)
         except (urllib.error.URLError, ConnectionError, TimeoutError, OSError):
             pass
         time.sleep(0.1)

@@ -10,6 +10,7 @@ import socket
 import subprocess
 import sys
 import time
+import urllib.error
 import urllib.request
 
 import pytest
@@ -94,3 +95,75 @@ def test_serve_prints_the_url_and_answers(tmp_path):
     while not serve._port_free(port) and time.monotonic() < deadline:
         time.sleep(0.2)
     assert serve._port_free(port), f"Voila still holds port {port} after serve() was stopped"
+
+
+def test_voila_arguments_cull_lock_down_and_base_url():
+    args = serve.voila_arguments(8123)
+    for flag in (f"--MappingKernelManager.cull_idle_timeout={serve.CULL_IDLE_S}",
+                 f"--MappingKernelManager.cull_interval={serve.CULL_INTERVAL_S}",
+                 "--MappingKernelManager.cull_connected=False",
+                 "--VoilaConfiguration.allow_template_override=NO",
+                 "--VoilaConfiguration.allow_theme_override=NO",
+                 "--VoilaConfiguration.multi_kernel_manager_class=widgets.server.KernelManager",
+                 "--Voila.base_url=/", "--ContrastAidVoila.secure_cookies=False"):
+        assert flag in args
+    args = serve.voila_arguments(8123, cull_idle_seconds=60, cull_interval_seconds=5, base_url="dept/contrast")
+    assert "--MappingKernelManager.cull_idle_timeout=60" in args
+    assert "--MappingKernelManager.cull_interval=5" in args
+    assert "--Voila.base_url=/dept/contrast/" in args
+    assert serve.url_for(8123, "/dept/contrast") == "http://127.0.0.1:8123/dept/contrast/"
+
+
+@pytest.mark.parametrize("given, expected", [("", "/"), ("/", "/"), ("app", "/app/"), ("/a/b/", "/a/b/"),
+                                             ("//a//b", "/a/b/")])
+def test_base_url_is_normalised(given, expected):
+    assert serve.normal_base_url(given) == expected
+
+
+@pytest.mark.parametrize("bad", ["/a/../b", "/a b/", "/a?x=1", "http://x/"])
+def test_bad_base_url_or_cull_time_exits_2_with_one_line(bad, capsys):
+    assert serve.serve(free_port(), None, base_url=bad) == 2
+    err = capsys.readouterr().err.strip()
+    assert err.startswith("base-url:") and "\n" not in err
+    assert serve.serve(free_port(), None, cull_idle_seconds=0) == 2
+    assert "cull-idle-seconds: 0 is out of range" in capsys.readouterr().err
+
+
+def test_cli_passes_the_serve_options(monkeypatch):
+    from knowledge import cli
+
+    seen = {}
+    monkeypatch.setattr(serve, "serve", lambda port, policy, **kw: seen.update(port=port, policy=policy, **kw) or 0)
+    assert cli.main(["serve", "--port", "9001", "--cull-idle-seconds", "300", "--cull-interval-seconds", "10",
+                     "--base-url", "/dept/", "--secure-cookies"]) == 0
+    assert seen == {"port": 9001, "policy": None, "cull_idle_seconds": 300, "cull_interval_seconds": 10,
+                    "base_url": "/dept/", "secure_cookies": True}
+    assert cli.main(["serve"]) == 0
+    assert (seen["cull_idle_seconds"], seen["cull_interval_seconds"], seen["base_url"], seen["secure_cookies"]) == (
+        serve.CULL_IDLE_S, serve.CULL_INTERVAL_S, "/", False)
+
+
+@pytest.mark.browser
+def test_served_under_a_base_url_behind_a_proxy(browser):
+    """--base-url /dept/contrast/: the page, its assets, its websocket and the health check live under it;
+    nothing is served at the root."""
+    from .conftest import LOAD_TIMEOUT_MS, start_voila
+
+    port = free_port()
+    cmd = serve.voila_command(port, None, base_url="/dept/contrast/")
+    proc, _ = start_voila(cmd, port, serve.voila_environment(None), "voila-base-url.log")
+    try:
+        base = serve.url_for(port, "/dept/contrast/")
+        with urllib.request.urlopen(base + serve.READY_PROBE, timeout=10) as resp:
+            assert resp.status == 200
+        with pytest.raises(urllib.error.HTTPError) as err:
+            urllib.request.urlopen(serve.url_for(port), timeout=10)
+        assert err.value.code == 404
+        page = browser.new_page()
+        try:
+            page.goto(base + "?exam=ct-abdomen-pelvis")
+            page.wait_for_selector(".ca-option", state="visible", timeout=LOAD_TIMEOUT_MS)
+        finally:
+            page.close(run_before_unload=True)
+    finally:
+        serve.stop(proc)
