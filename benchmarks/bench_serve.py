@@ -160,6 +160,13 @@ async def browser_figures(loads: int, users: list[int], app_port: int, app_pid: 
     return out
 
 
+def _mem_gb() -> float:
+    for line in Path("/proc/meminfo").read_text().splitlines():
+        if line.startswith("MemTotal:"):
+            return int(line.split()[1]) / 1024 / 1024
+    return float("nan")
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--loads", type=int, default=5, help="timed single-user loads per page (default 5)")
@@ -170,6 +177,7 @@ def main(argv: list[str] | None = None) -> int:
     if not CHROMIUM.exists():
         print(f"{CHROMIUM} not found: install the Debian package chromium", file=sys.stderr)
         return 2
+    load0 = os.getloadavg()[0]
     core = core_figures(args.rounds)
     with tempfile.TemporaryDirectory(prefix="bench-serve-") as tmp:
         slider_nb = Path(tmp) / "slider.ipynb"
@@ -213,7 +221,9 @@ def main(argv: list[str] | None = None) -> int:
     print(f"{'figure':{width}s}  {'value':>10s}  notes")
     for name, value, note in rows:
         print(f"{name:{width}s}  {value:>10s}  {note}")
-    print(f"machine: {os.cpu_count()} cores; server, kernels and Chromium share them")
+    load = os.getloadavg()
+    print(f"machine: {os.cpu_count()} cores, {_mem_gb():.0f} GB; server, kernels and Chromium share them; "
+          f"load average at the start {load0:.1f}, at the end {load[0]:.1f} / {load[1]:.1f} / {load[2]:.1f} (1 / 5 / 15 min)")
     return 0
 
 

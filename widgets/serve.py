@@ -1,6 +1,10 @@
 """Serve the contrast-aid dashboard with Voila, offline and on one fixed port.
 
-``contrast-aid serve [--port N] [--policy FILE]`` calls :func:`serve`. The dashboard is the notebook
+``contrast-aid serve [--port N] [--policy FILE] [--cull-idle-seconds N] [--cull-interval-seconds N]
+[--base-url PATH] [--secure-cookies]`` calls :func:`serve`. The server itself is
+:class:`widgets.server.ContrastAidVoila` (Voila, locked down to the one page, with a health check,
+security headers and kernel ids kept out of its log); a kernel no browser is connected to is shut down
+after ``--cull-idle-seconds`` idle (default 120 s, checked every 30 s), one a browser is connected to never. The dashboard is the notebook
 ``contrast-aid.ipynb`` of the package ``contrast_aid_notebooks`` (the folder ``notebooks/``), found
 through :mod:`importlib.resources`, so an installed wheel works outside the checkout.
 
@@ -14,7 +18,7 @@ environment variable ``CONTRAST_AID_POLICY``; it is validated here before the se
 
 This module never imports ipywidgets or voila at import time: the CLI imports it lazily and must stay
 fast. ``python -m widgets.serve [--policy FILE] -- VOILA-ARGS`` is the launcher that
-:func:`voila_command` builds: it sets the environment, then runs Voila in the same process.
+:func:`voila_command` builds: it sets the environment, then runs the server in the same process.
 """
 
 from __future__ import annotations
