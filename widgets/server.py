@@ -23,7 +23,8 @@ where Voila builds its tornado application, so nothing of Voila is patched in pl
   ``Referrer-Policy: no-referrer``, and removes tornado's ``Server: TornadoServer/x`` header.
 * **Logs.** The access log is ours (:func:`log_request`): method, path without its query string (a
   shared link carries the case in it) and with kernel ids replaced by ``<kernel>``, status, time. A log
-  record factory replaces kernel ids in every other log message of the server process too.
+  record factory replaces kernel ids and query strings in every other log message (and traceback) of
+  the server process too.
 
 The XSRF check stays on; the ``_xsrf`` cookie is ``SameSite=Strict`` (and ``Secure`` with ``--secure-
 cookies``, for a server reached over TLS at a reverse proxy).
@@ -73,9 +74,14 @@ SECURITY_HEADERS = {
 }
 
 
+#: a URL's query string (``?exam=...&creatinine=...``): a shared link carries the case in it, and tornado
+#: writes a request's full URI into its warnings and uncaught-exception reports
+QUERY = re.compile(r"\?[^\s'\"<>]*=[^\s'\"<>]*")
+
+
 def redact(text: str) -> str:
-    """``text`` with every kernel id replaced by ``<kernel>``."""
-    return KERNEL_ID.sub("<kernel>", text)
+    """``text`` with every kernel id replaced by ``<kernel>`` and every query string by ``?<query>``."""
+    return QUERY.sub("?<query>", KERNEL_ID.sub("<kernel>", text))
 
 
 _formatter = logging.Formatter()

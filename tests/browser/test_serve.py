@@ -167,3 +167,35 @@ def test_served_under_a_base_url_behind_a_proxy(browser):
             page.close(run_before_unload=True)
     finally:
         serve.stop(proc)
+
+
+def test_server_log_lines_lose_kernel_ids_and_query_strings():
+    """Kernel ids and a shared link's query string (the case) never reach the server's log, even in a
+    traceback; tornado writes the full URI into its warnings and uncaught-exception reports."""
+    import io
+    import logging
+
+    from widgets import server
+
+    kid = "10a9ca11-9860-4023-8d1d-2b5b1454cd53"
+    stream = io.StringIO()
+    log = logging.getLogger("test.redaction")
+    handler = logging.StreamHandler(stream)
+    log.addHandler(handler)
+    log.propagate = False
+    previous = logging.getLogRecordFactory()
+    server.install_log_redaction()
+    try:
+        log.warning("Kernel started: %s", kid)
+        log.warning("400 GET /?exam=ct-abdomen-pelvis&creatinine=7.77 (127.0.0.1)")
+        try:
+            raise KeyError(kid)
+        except KeyError:
+            log.exception("while culling %s", kid)
+    finally:
+        logging.setLogRecordFactory(previous)
+        log.removeHandler(handler)
+    text = stream.getvalue()
+    assert kid not in text and "7.77" not in text and "creatinine" not in text
+    assert text.count("<kernel>") == 3 and "GET /?<query> (127.0.0.1)" in text
+    assert "KeyError" in text  # the traceback itself is kept
