@@ -61,7 +61,7 @@ def p95(values: list[float]) -> float:
 
 # ------------------------------------------------------------------------------------------ core, in process
 def core_figures(rounds: int) -> dict[str, float]:
-    from knowledge import load_knowledge
+    from knowledge import decide, load_knowledge
     from tests.scenarios import load_vectors
 
     load_knowledge()  # warm imports and the file cache
@@ -72,12 +72,12 @@ def core_figures(rounds: int) -> dict[str, float]:
         loads.append((time.perf_counter() - t) * 1000)
     cases = [v["case"] for v in load_vectors()]
     for c in cases:
-        k.decide(c)
+        decide(c, k)
     decides = []
     for _ in range(5):
         for c in cases:
             t = time.perf_counter()
-            k.decide(c)
+            decide(c, k)
             decides.append((time.perf_counter() - t) * 1000)
 
     from widgets.app import ContrastAidApp
