@@ -45,7 +45,7 @@ from widgets import serve  # noqa: E402
 
 CASE_QUERY = "exam=ct-abdomen-pelvis&creatinine=1.4&unit=mg/dL&age=60&sex=male&weight=80"
 LOCAL = ("http://127.0.0.1", "http://localhost", "data:", "blob:")
-TIMEOUT_MS = 120_000
+TIMEOUT_MS = 90_000
 #: a tab-close request that has not ended its kernel by then was lost (the cull ends that kernel later)
 CLOSE_WAIT_S = 5.0
 
@@ -108,26 +108,33 @@ async def load_once(browser, url: str, selector: str, server_pid: int | None = N
     ``close_times``, appends the seconds from closing the tab until its kernel process has ended."""
     before = set(procs.kernels(server_pid)) if server_pid is not None else set()
     context = await browser.new_context(viewport={"width": 1280, "height": 900})
-    page = await context.new_page()
-    await page.route("**/*", _route_local)
-    t0 = time.perf_counter()
-    await page.goto(url, wait_until="commit", timeout=TIMEOUT_MS)
-    await page.wait_for_function(READY_JS, arg=selector, timeout=TIMEOUT_MS, polling=20)
-    tti = time.perf_counter() - t0
-    log(f"  {url.split('?')[0]} interactive in {tti:.2f} s")
-    rss = None
-    if server_pid is not None:
-        if plot_selector:
-            await page.wait_for_selector(plot_selector, timeout=TIMEOUT_MS)
-        await asyncio.sleep(1.0)  # let the kernel finish replying to the first round of widget messages
-        started = set(procs.kernels(server_pid)) - before
-        rss = procs.rss_mb(next(iter(started))) if len(started) == 1 else None
-    closed_at = time.perf_counter()
-    await page.close(run_before_unload=True)
-    # The tab is closed, the browser lives on (as a user's does): closing the whole context at once would
-    # also cancel the tab-close request still in flight.
-    await asyncio.sleep(0.5)
-    await context.close()
+    closed = False
+    try:
+        page = await context.new_page()
+        await page.route("**/*", _route_local)
+        t0 = time.perf_counter()
+        await page.goto(url, wait_until="commit", timeout=TIMEOUT_MS)
+        await page.wait_for_function(READY_JS, arg=selector, timeout=TIMEOUT_MS, polling=20)
+        tti = time.perf_counter() - t0
+        log(f"  {url.split('?')[0]} interactive in {tti:.2f} s")
+        rss = None
+        started: set[int] = set()
+        if server_pid is not None:
+            if plot_selector:
+                await page.wait_for_selector(plot_selector, timeout=TIMEOUT_MS)
+            await asyncio.sleep(1.0)  # let the kernel finish replying to the first round of widget messages
+            started = set(procs.kernels(server_pid)) - before
+            rss = procs.rss_mb(next(iter(started))) if len(started) == 1 else None
+        closed_at = time.perf_counter()
+        await page.close(run_before_unload=True)
+        # The tab is closed, the browser lives on (as a user's does): closing the whole context at once
+        # would also cancel the tab-close request still in flight.
+        await asyncio.sleep(0.5)
+        await context.close()
+        closed = True
+    finally:
+        if not closed:  # a page that timed out: close it, so that its kernel can be culled
+            await context.close()
     if server_pid is not None and close_times is not None and len(started) == 1:
         pid = next(iter(started))
         while pid in procs.kernels(server_pid) and time.perf_counter() - closed_at < CLOSE_WAIT_S:
@@ -163,16 +170,20 @@ async def browser_figures(loads: int, users: list[int], app_port: int, app_pid: 
                 out["tti"][name].append(tti)
                 if rss is not None:
                     out["rss"][name].append(rss)
+        await browser.close()
         for n in users:
             times: list[float] = []
             for _ in range(2):
                 await settle(app_pid)
+                # a fresh browser per round: one long-lived Chromium stopped sending the page requests of
+                # later rounds here (its connections to the server stayed open, no request arrived)
+                browser = await p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
                 results = await asyncio.gather(*(load_once(browser, app_url, ".ca-exam") for _ in range(n)),
                                                return_exceptions=True)
+                await browser.close()
                 # a page not interactive within TIMEOUT_MS counts as that long (and is reported as such)
                 times += [TIMEOUT_MS / 1000 if isinstance(r, BaseException) else r[0] for r in results]
             out["users"][n] = times
-        await browser.close()
     return out
 
 
