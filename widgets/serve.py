@@ -206,6 +206,9 @@ def _port_free(port: int) -> bool:
     import socket
 
     with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
+        # As tornado binds its listening socket: connections of a stopped server still in TIME_WAIT (the
+        # server closes after answering a probe) do not make the port busy; a listening socket does.
+        s.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
         try:
             s.bind((HOST, port))
         except OSError:
