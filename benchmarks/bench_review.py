@@ -34,7 +34,6 @@ sys.path.insert(0, str(ROOT))
 
 from benchmarks.worklist_gen import HEADER, make_rows  # noqa: E402
 from knowledge.decision.engine import decide  # noqa: E402
-from knowledge.errors import ContrastAidError  # noqa: E402
 from knowledge.review import worklist as wl  # noqa: E402
 from knowledge.review.columns import CaseBuilder  # noqa: E402
 from knowledge.review.scale import pool_decider  # noqa: E402
