@@ -38,12 +38,16 @@ def plan_agent_doses(case: m.Case, k: Any, exam: m.Exam, roles: list[m.RoleDecis
     return out
 
 
-def _access(route: m.Route, flow: float | None, iv: m.IVAccess | None, warnings: list[str]):
+def access_check(route: m.Route, flow: float | None, iv_access: m.IVAccess | None,
+                 warnings: list[str]) -> tuple[bool | None, str | None]:
+    """Whether the IV catheter fits the flow (ACR Manual wording); arterial catheters are not checked."""
+    if route is m.Route.intra_arterial:
+        return None, "Arterial catheter: peripheral IV access rules do not apply"
     if route is not m.Route.intravenous or flow is None:
         return None, None
-    if iv is None:
+    if iv_access is None:
         return None, "No IV access given: not checked"
-    chk = access_calc.check_access(iv.gauge, iv.site, flow)
+    chk = access_calc.check_access(iv_access.gauge, iv_access.site, flow)
     if not chk.ok:
         warnings.append(f"IV access not fit: {chk.message}")
     return chk.ok, chk.message
@@ -83,7 +87,7 @@ def gadolinium_block(agent: m.Agent, role: m.ExamRole, p: m.Patient, cite: Any) 
         mmol, vol = d.dose_mmol, d.volume_ml
         if flow is not None and vol >= 0.1:
             dur = gd_calc.bolus_duration(vol, flow)
-    ok, msg = _access(role.route, flow, p.iv_access, warnings)
+    ok, msg = access_check(role.route, flow, p.iv_access, warnings)
     certainty = (prot.certainty if from_protocol else agent.dose_certainty) or m.Certainty.from_memory
     src_ref = prot.source if from_protocol and prot else agent.dose_source
     source = cite([src_ref], certainty) if src_ref is not None else (
@@ -120,7 +124,7 @@ def microbubble_block(agent: m.Agent, role: m.ExamRole, p: m.Patient, cite: Any)
             vol = gd_calc.volume_by_weight(p.weight_kg, per_kg)
     else:
         basis = "no volume in the exam protocol: see the label"
-    ok, msg = _access(role.route, prot.flow_ml_s, p.iv_access, warnings)
+    ok, msg = access_check(role.route, prot.flow_ml_s, p.iv_access, warnings)
     return m.AgentDoseBlock(
         agent=agent.id, family=agent.family, volume_ml=None if vol is None else round(vol, 2),
         volume_ml_per_kg=per_kg, basis=basis, flow_ml_s=prot.flow_ml_s, access_ok=ok, access_message=msg,

@@ -60,9 +60,7 @@ def parse_case(data: Any) -> m.Case:
     :func:`parse_form_case`. Raises :class:`CaseError` naming the field."""
     if isinstance(data, m.Case):
         return data
-    if not isinstance(data, dict):
-        raise CaseError(f"case: must be a JSON object with 'exam' and 'patient'; got {type(data).__name__}",
-                        field="case", value=data, allowed="an object with 'exam' and 'patient'")
+    _must_be_object(data)
     try:
         text = json.dumps(data, default=_json_default, allow_nan=False)
     except (TypeError, ValueError, RecursionError) as exc:
@@ -76,14 +74,18 @@ def parse_case(data: Any) -> m.Case:
     return case
 
 
+def _must_be_object(data: Any) -> None:
+    if not isinstance(data, dict):
+        raise CaseError(f"case: must be a JSON object with 'exam' and 'patient'; got {type(data).__name__}",
+                        field="case", value=data, allowed="an object with 'exam' and 'patient'")
+
+
 def parse_form_case(data: Any) -> m.Case:
     """Validate a case from the dashboard form or a shared link: like :func:`parse_case`, but the values
     may be strings as typed ("71", "2026-12-02 09:00"), which pydantic's lax mode converts."""
     if isinstance(data, m.Case):
         return data
-    if not isinstance(data, dict):
-        raise CaseError(f"case: must be an object with 'exam' and 'patient'; got {type(data).__name__}",
-                        field="case", value=data, allowed="an object with 'exam' and 'patient'")
+    _must_be_object(data)
     try:
         case = m.Case.model_validate(data)
     except ValidationError as exc:

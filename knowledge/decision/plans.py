@@ -25,12 +25,11 @@ import math
 from typing import Any
 
 from ..tables import models as m
-from ..calculators import access as access_calc
 from ..calculators import body, dose as dose_calc, freshness, hydration, kidney, limits, timeline, viscosity
 from ..calculators import paediatric
 from ..errors import CaseError, ContrastAidError, RangeError
 from ..tables.constants import METFORMIN_HOLD_HOURS, VISCOUS_FLOW_ML_S, VISCOUS_MPAS_37C
-from .agent_doses import plan_agent_doses  # gadolinium and microbubble doses (issue 13)
+from .agent_doses import access_check, plan_agent_doses  # gadolinium and microbubble doses (issue 13)
 
 
 
@@ -204,21 +203,6 @@ def pick_strength(agent: m.Agent, strengths: list[m.Concentration], protocol: m.
         raise RangeError(f"{field}: {requested:g} is not a strength of {agent.id}; allowed: "
                          f"{', '.join(f'{v:g}' for v in values)}", field=field)
     return float(requested), f"{requested:g} mg I/mL: as requested"
-
-
-def access_check(route: m.Route, flow: float | None, iv_access: m.IVAccess | None,
-                 warnings: list[str]) -> tuple[bool | None, str | None]:
-    """Whether the IV catheter fits the flow (ACR Manual wording); arterial catheters are not checked."""
-    if route is m.Route.intra_arterial:
-        return None, "Arterial catheter: peripheral IV access rules do not apply"
-    if route is not m.Route.intravenous or flow is None:
-        return None, None
-    if iv_access is None:
-        return None, "No IV access given: not checked"
-    chk = access_calc.check_access(iv_access.gauge, iv_access.site, flow)
-    if not chk.ok:
-        warnings.append(f"IV access not fit: {chk.message}")
-    return chk.ok, chk.message
 
 
 def viscosity_block(rec: m.Concentration, flow: float | None, cite: Any, warnings: list[str]) -> m.Viscosity | None:

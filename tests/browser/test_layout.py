@@ -1,8 +1,9 @@
 """The plan on top, at three screen sizes: the summary in the first screen, "what changed" after a toggle,
 no horizontal overflow, the copy buttons' text, and axe-core with no serious or critical violation.
 
-axe-core (MPL-2.0, from the npm registry: ``npm install axe-core``) is vendored as the single file
-``tests/browser/vendor/axe.min.js`` and injected into the page from disk, never from a CDN.
+axe-core (MPL-2.0) is third-party code and is not kept in this repository: the ``axe`` fixture installs the
+pinned version from the npm registry with the machine's npm into ``test-artifacts/node/`` (gitignored)
+the first time, and its ``axe.min.js`` is injected into the page from disk, never from a CDN.
 Screenshots (the first screen and the whole page at each size) go to test-artifacts/screenshots/.
 """
 
@@ -14,11 +15,13 @@ from urllib.parse import urlencode
 
 import pytest
 
-from .conftest import LOAD_TIMEOUT_MS, SCREENSHOTS, screenshot
+from .conftest import ARTIFACTS, LOAD_TIMEOUT_MS, SCREENSHOTS, _unavailable, screenshot
 
 pytestmark = pytest.mark.browser
 
-AXE = Path(__file__).resolve().parent / "vendor" / "axe.min.js"
+AXE_VERSION = "4.14.1"
+NODE_PREFIX = ARTIFACTS / "node"
+AXE = NODE_PREFIX / "node_modules" / "axe-core" / "axe.min.js"
 SIZES = [(1400, 900), (1024, 768), (390, 844)]
 #: invented patient (Riverside Imaging demo case): CT abdomen and pelvis tomorrow 09:00
 CT_CASE = {"exam": "ct-abdomen-pelvis", "at": "2026-12-02T09:00", "asof": "2026-12-01T15:00",
@@ -51,6 +54,27 @@ def _open(page, server, query: dict[str, str]) -> None:
     page.goto(server.url + "?" + urlencode(query))
     page.wait_for_selector(".ca-summary", state="visible", timeout=LOAD_TIMEOUT_MS)
     page.wait_for_selector(".ca-option", state="attached", timeout=LOAD_TIMEOUT_MS)
+
+
+@pytest.fixture(scope="session", autouse=True)
+def axe_script() -> Path:
+    """axe-core's axe.min.js, installed once from the npm registry by npm (never a CDN, never a browser)."""
+    import json
+    import shutil
+    import subprocess
+
+    installed = AXE.parent / "package.json"
+    if AXE.is_file() and installed.is_file() and json.loads(installed.read_text())["version"] == AXE_VERSION:
+        return AXE
+    npm = shutil.which("npm")
+    if npm is None:
+        _unavailable("npm is missing: axe-core is installed with npm (Debian package npm, or Node.js)")
+    NODE_PREFIX.mkdir(parents=True, exist_ok=True)
+    done = subprocess.run([npm, "install", "--prefix", str(NODE_PREFIX), "--no-audit", "--no-fund",
+                           "--no-save", f"axe-core@{AXE_VERSION}"], capture_output=True, text=True, timeout=300)
+    if done.returncode != 0 or not AXE.is_file():
+        _unavailable(f"npm could not install axe-core@{AXE_VERSION}: {done.stderr.strip()[-300:]}")
+    return AXE
 
 
 def _axe(page) -> list[str]:
