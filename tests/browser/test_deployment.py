@@ -121,6 +121,10 @@ def test_closed_tab_ends_its_kernel_and_memory_returns_to_baseline(deployed, bro
     assert n == 0, f"kernel still running {waited:.1f} s after its tab closed"
     assert waited < CULL_IDLE_S, "the kernel was culled, not shut down by the page"
     assert procs.kernels_rss_mb(deployed.proc.pid) == baseline_rss == 0
+    # the kernel can end before tornado writes the request's access-log line: wait for that line
+    deadline = time.monotonic() + BEACON_DEADLINE_S
+    while "204 POST /voila/api/shutdown/<kernel>" not in deployed.log_text() and time.monotonic() < deadline:
+        time.sleep(0.2)
     log = deployed.log_text()
     assert "204 POST /voila/api/shutdown/<kernel>" in log
     assert not re.search(r"\b403 (GET|POST)", log)
