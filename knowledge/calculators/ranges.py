@@ -63,3 +63,5 @@ VOLUME_RANGE = (0.1, _closed(m.Case, "planned_volume_ml")[1])
 FLOW_RANGE = (0.1, _closed(m.Case, "planned_flow_ml_s")[1])
 #: Weight-based iodine dose, g I/kg: 0.05 up to the protocol model's cap.
 IODINE_G_PER_KG_RANGE = (0.05, _closed(m.DoseProtocol, "iodine_g_per_kg")[1])
+#: Injection time, s: a bound on the input only (1 s to 10 min), not a clinical figure.
+INJECTION_S_RANGE = (1.0, 600.0)

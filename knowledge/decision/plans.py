@@ -27,6 +27,7 @@ from typing import Any
 from ..tables import models as m
 from ..calculators import body, dose as dose_calc, freshness, hydration, kidney, limits, timeline, viscosity
 from ..calculators import paediatric
+from ..calculators.ranges import FLOW_RANGE
 from ..errors import CaseError, ContrastAidError, RangeError
 from ..tables.constants import METFORMIN_HOLD_HOURS, VISCOUS_FLOW_ML_S, VISCOUS_MPAS_37C
 from .agent_doses import access_check, plan_agent_doses  # gadolinium and microbubble doses (issue 13)
@@ -115,6 +116,40 @@ def _child_volume(pp: m.PaediatricProtocol, adult_max: float, conc: float, weigh
     return volume, basis
 
 
+def _protocol_injection_s(protocol: m.DoseProtocol) -> float | None:
+    """How long the adult protocol injects, s: the scan time plus offset (CT angiography), else the fixed
+    volume over the flow; None for weight-based or hand-bolus protocols."""
+    if protocol.scan_duration_s is not None:
+        return protocol.scan_duration_s + protocol.duration_offset_s
+    if protocol.fixed_volume_ml is not None and protocol.flow_ml_s is not None:
+        return protocol.fixed_volume_ml / protocol.flow_ml_s
+    return None
+
+
+def _child_flow_for(protocol: m.DoseProtocol, volume: float | None, iv_access: m.IVAccess | None,
+                    planned_flow_ml_s: float | None) -> tuple[float | None, bool, str]:
+    """(flow, hand injection, why) for a child: the cannula's limit (ACR Manual), then the child's size - the
+    child's volume over the protocol's injection time (common practice); a planned flow overrides both."""
+    gauge = iv_access.gauge if iv_access else None
+    site = iv_access.site if iv_access else None
+    flow, hand, why = paediatric.child_flow(protocol.flow_ml_s, gauge, site)
+    if hand:
+        return flow, hand, why
+    if planned_flow_ml_s is not None:
+        return planned_flow_ml_s, False, "planned flow"
+    injection_s = _protocol_injection_s(protocol)
+    if flow is None or volume is None or injection_s is None:
+        return flow, hand, why
+    size_flow = paediatric.size_limited_flow(volume, injection_s)
+    if size_flow < FLOW_RANGE[0]:
+        return None, True, (f"{volume:g} mL is too little to power-inject over the protocol's {injection_s:g} s: "
+                            "inject by hand (common practice)")
+    if size_flow < flow:
+        return size_flow, False, (f"{size_flow:g} mL/s for the child's size: {volume:g} mL over the protocol's "
+                                  f"{injection_s:g} s injection (common practice); protocol and cannula allow {flow:g} mL/s")
+    return flow, hand, why
+
+
 def child_dose_block(agent: m.Agent, protocol: m.DoseProtocol, *, weight_kg: float | None,
                      planned_volume_ml: float | None, planned_flow_ml_s: float | None,
                      concentration_mg_i_ml: float | None, iv_access: m.IVAccess | None, cite: Any,
@@ -135,11 +170,7 @@ def child_dose_block(agent: m.Agent, protocol: m.DoseProtocol, *, weight_kg: flo
                 f"{pp.concentration_mg_i_ml:g} mg I/mL, at most {pp.max_ml_per_kg:g} mL/kg and never above the adult "
                 f"{adult_max:g} mL; ACR Manual, {pp.certainty.value.replace('_', ' ')}) instead of the adult protocol"]
     volume, basis = _child_volume(pp, adult_max, conc, weight_kg, planned_volume_ml, warnings)
-    gauge = iv_access.gauge if iv_access else None
-    site = iv_access.site if iv_access else None
-    flow, hand, why = paediatric.child_flow(protocol.flow_ml_s, gauge, site)
-    if planned_flow_ml_s is not None and not hand:
-        flow = planned_flow_ml_s
+    flow, hand, why = _child_flow_for(protocol, volume, iv_access, planned_flow_ml_s)
     warnings.append(f"Flow: {why}")
     iodine = dose_calc.iodine_grams(volume, conc) if volume is not None else None
     idr = dose_calc.iodine_delivery_rate(conc, flow) if flow is not None else None
@@ -407,16 +438,42 @@ def plan_premedication(case: m.Case, k: Any, premed: m.PremedicationBlock) -> m.
                                             k.regimens[pol.premedication_accelerated_regimen],
                                             case.scheduled_at, case.as_of, urgency=case.urgency.value)
     warnings = list(sched.warnings)
+    schedule = [m.ScheduleItem(at=d.at, hours_before=None if math.isnan(d.hours_before) else
+                               round(d.hours_before, 2), drug=d.drug, dose=d.dose, route=d.route,
+                               optional=d.optional) for d in sched.doses]
     age = case.patient.age_years
     if age is not None and age < paediatric.ADULT_AGE_YEARS:
-        warnings.append("Patient under 18: the regimen's doses are adult doses; a child's premedication doses are "
-                        "per kg - set them with the paediatric team (not modelled here)")
+        schedule = child_premedication(schedule, sched.regimen, case.patient.weight_kg, warnings)
     return premed.model_copy(update=dict(
         regimen=sched.regimen.id, regimen_name=sched.regimen.name, lead_hours=_r(sched.lead_hours),
-        schedule=[m.ScheduleItem(at=d.at, hours_before=None if math.isnan(d.hours_before) else
-                                 round(d.hours_before, 2), drug=d.drug, dose=d.dose, route=d.route,
-                                 optional=d.optional) for d in sched.doses],
-        warnings=warnings))
+        schedule=schedule, warnings=warnings))
+
+
+def child_premedication(schedule: list[m.ScheduleItem], regimen: m.Regimen, weight_kg: float | None,
+                        warnings: list[str]) -> list[m.ScheduleItem]:
+    """A child's doses of the regimen: mg/kg with a maximum per dose where the policy gives a child's dose
+    (default profile: ACR Manual, contrast media in children, from memory); where it gives none, or no weight
+    is known, the adult dose stays and a warning says so - never an adult dose for a child silently."""
+    steps = {(st.drug, st.route, st.dose): st for st in regimen.steps}
+    out, adult = [], set()
+    for item in schedule:
+        st = steps.get((item.drug, item.route, item.dose))
+        if st is None or st.child_mg_per_kg is None or weight_kg is None:
+            adult.add(item.drug)
+            out.append(item)
+            continue
+        mg = paediatric.child_drug_dose(weight_kg, st.child_mg_per_kg, st.child_max_mg)
+        per_kg = "-".join(f"{v:g}" for v in st.child_mg_per_kg)
+        out.append(item.model_copy(update={"dose": f"{'-'.join(f'{v:g}' for v in mg)} mg ({per_kg} mg/kg × "
+                                                  f"{weight_kg:g} kg, at most {st.child_max_mg:g} mg)"}))
+    if adult:
+        why = "no weight was given" if weight_kg is None else "the policy gives no child's dose for them"
+        warnings.append(f"Patient under 18: {', '.join(sorted(adult))} shown at the adult dose because {why}; a "
+                        "child's premedication dose is per kg - set it with the paediatric team")
+    else:
+        warnings.append("Patient under 18: premedication doses are per kg of body weight (policy figures); "
+                        "check them with the paediatric team")
+    return out
 
 
 def plan_metformin(case: m.Case, met: m.MetforminBlock) -> m.MetforminBlock:

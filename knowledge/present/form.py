@@ -104,7 +104,8 @@ GROUPS: dict[str, tuple[str, ...]] = {
     "history": ("prior_reactions",),
     "other": ("takes_metformin", "hyperthyroidism", "radioiodine_planned", "pregnant", "breastfeeding",
               "shellfish_or_iodine_allergy", "heart_failure", "myasthenia_gravis", "inpatient",
-              "manifest_hyperthyroidism", "pheochromocytoma", "peg_allergy", "unstable_cardiopulmonary"),
+              "manifest_hyperthyroidism", "pheochromocytoma", "peg_allergy", "unstable_cardiopulmonary",
+              "infant_thyroid_risk"),
     "size": ("weight_kg", "height_cm", "iv_access"),
 }
 GROUP_TITLES = {"kidney": "Kidney", "gut": "Gut and swallowing", "history": "Earlier contrast reactions",
@@ -134,6 +135,7 @@ LABELS: dict[str, str] = {
     "patient.bowel_fistula_suspected": "Bowel fistula suspected",
     "patient.obstruction_high_grade": "Obstruction is high-grade",
     "patient.pheochromocytoma": "Pheochromocytoma or paraganglioma",
+    "patient.infant_thyroid_risk": "Child under 3: born preterm or small, or heart disease",
     "patient.peg_allergy": "Polyethylene glycol (PEG) hypersensitivity",
     "patient.unstable_cardiopulmonary": "Pulmonary hypertension or unstable cardiopulmonary condition",
     "patient.prior_reactions.despite_premedication": "Reaction: despite premedication",

@@ -598,6 +598,20 @@ class RegimenStep(Strict):
     dose: str = Field(description="Dose with unit, e.g. '50 mg'")
     route: Literal["oral", "intravenous"] = Field(description="oral or intravenous")
     optional: bool = Field(False, description="The step is optional in the source")
+    child_mg_per_kg: list[float] | None = Field(
+        None, description="A child's dose, mg/kg: one figure or a [low, high] range (0.01-10)", min_length=1,
+        max_length=2)
+    child_max_mg: float | None = Field(None, description="Most a child is given in one dose, mg", gt=0, le=1000)
+
+    @model_validator(mode="after")
+    def _child_dose_complete(self) -> "RegimenStep":
+        if self.child_mg_per_kg is not None:
+            if self.child_max_mg is None:
+                raise ValueError("child_mg_per_kg needs child_max_mg (a child's dose never exceeds a set maximum)")
+            if any(not (0.01 <= v <= 10) for v in self.child_mg_per_kg) or sorted(self.child_mg_per_kg) != \
+                    list(self.child_mg_per_kg):
+                raise ValueError("child_mg_per_kg: one figure or [low, high], each from 0.01 to 10 mg/kg")
+        return self
 
 
 Regimen.model_rebuild()
@@ -764,6 +778,9 @@ class Patient(Strict):
                            "disease (manifest hyperthyroidism is its own field)")
     manifest_hyperthyroidism: bool = Field(False, description="Manifest (overt) hyperthyroidism now")
     pheochromocytoma: bool = Field(False, description="Known or suspected pheochromocytoma or paraganglioma")
+    infant_thyroid_risk: bool = Field(
+        False, description="Child under 3 with a thyroid risk factor: born preterm or with low birth weight, "
+                           "or heart disease")
     colitis_or_diverticulitis: bool = Field(False, description="Acute colitis or acute diverticulitis")
     toxic_megacolon: bool = Field(False, description="Toxic megacolon, known or suspected")
     recent_deep_biopsy: bool = Field(
