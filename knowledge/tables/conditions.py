@@ -7,7 +7,8 @@ dict of facts. Nothing is ever ``eval``'d.
 
 from __future__ import annotations
 
-from typing import Any, Callable
+import operator
+from typing import Any, Callable, NamedTuple
 
 from . import models as m
 from ..errors import KnowledgeError, suggest
@@ -116,7 +117,24 @@ def compile_condition(cond: m.Condition, policy: m.Policy, where: str, scope: m.
     if isinstance(cond, m.Not):
         inner = compile_condition(cond.not_, policy, where, scope)
         return lambda f: not inner(f)
+    test = _Operand(cond.operator, cond.fact, _fact_spec(cond, where, scope), cond.operand, policy, where)
+    return OPERATORS[test.op](test)
 
+
+class _Operand(NamedTuple):
+    """One test being compiled: its operator, the fact's name and catalogue entry, the operand as written."""
+
+    op: str
+    key: str
+    spec: Any
+    raw: Any
+    policy: m.Policy
+    where: str
+
+
+def _fact_spec(cond: m.Test, where: str, scope: m.Scope) -> Any:
+    """The catalogue entry of the fact a test names; an unknown fact, or a per-agent fact in a case-scope
+    rule, is a KnowledgeError."""
     spec = FACTS.get(cond.fact)
     if spec is None:
         near = suggest(cond.fact, FACTS)
@@ -126,52 +144,74 @@ def compile_condition(cond: m.Condition, policy: m.Policy, where: str, scope: m.
                              allowed="the facts of `contrast-aid knowledge facts`")
     if scope is m.Scope.case and spec.scope == "agent":
         raise KnowledgeError(f"{where}: fact {cond.fact} is per agent; a case-scope rule cannot test it")
-    op, raw = cond.operator, cond.operand
-    key = cond.fact
+    return spec
 
-    if op in ("lt", "le", "gt", "ge"):
-        is_severity = spec.kind == "enum" and spec.values == tuple(_SEVERITY_RANK)
-        if spec.kind != "number" and not is_severity:
-            raise KnowledgeError(f"{where}: operator {op} needs a numeric fact or a severity; {key} is {spec.kind}")
-        if is_severity:  # severity comparisons: none < mild < moderate < severe
-            if raw not in _SEVERITY_RANK:
-                raise KnowledgeError(f"{where}: {raw!r} is not a severity; allowed: {', '.join(SEVERITY_RANK)}")
-            bound = _SEVERITY_RANK[raw]
-            get = lambda f: _SEVERITY_RANK[f.get(key) or "none"]  # noqa: E731
-        else:
-            bound = _resolve(raw, policy, where)
-            if isinstance(bound, bool) or not isinstance(bound, (int, float)):
-                raise KnowledgeError(f"{where}: operator {op} needs a number; got {raw!r}")
-            get = lambda f: f.get(key)  # noqa: E731
-        if op == "lt":
-            return lambda f: (v := get(f)) is not None and v < bound
-        if op == "le":
-            return lambda f: (v := get(f)) is not None and v <= bound
-        if op == "gt":
-            return lambda f: (v := get(f)) is not None and v > bound
-        return lambda f: (v := get(f)) is not None and v >= bound
 
-    if op == "known":
-        want = bool(raw)
-        return lambda f: (f.get(key) is not None) is want
-    if op == "has":
-        if spec.kind != "list":
-            raise KnowledgeError(f"{where}: operator has needs a list fact; {key} is {spec.kind}")
-        item = raw
-        return lambda f: item in (f.get(key) or ())
-    if op in ("in", "not_in"):
-        values = list(raw or [])
-        if not values:
-            raise KnowledgeError(f"{where}: operator {op} needs a non-empty list")
-        for v in values:
-            _check_value(spec, v, where)
-        allowed = frozenset(values)
-        if op == "in":
-            return lambda f: f.get(key) in allowed
-        return lambda f: f.get(key) not in allowed
-    # is / is_not
-    value = _resolve(raw, policy, where)
-    _check_value(spec, value, where)
-    if op == "is":
-        return lambda f: f.get(key) == value
-    return lambda f: f.get(key) != value
+#: the comparisons of the order operators (false when the fact is unknown)
+_ORDER: dict[str, Callable[[Any, Any], bool]] = {"lt": operator.lt, "le": operator.le, "gt": operator.gt,
+                                                  "ge": operator.ge}
+#: the comparisons of the equality operators
+_EQUALITY: dict[str, Callable[[Any, Any], bool]] = {"is": operator.eq, "is_not": operator.ne}
+
+
+def _order_operand(t: _Operand) -> tuple[Callable[[Facts], Any], Any]:
+    """How to read the fact and the bound it is compared with: a number (or a policy setting), or a
+    severity (none < mild < moderate < severe)."""
+    key = t.key
+    is_severity = t.spec.kind == "enum" and t.spec.values == tuple(_SEVERITY_RANK)
+    if t.spec.kind != "number" and not is_severity:
+        raise KnowledgeError(f"{t.where}: operator {t.op} needs a numeric fact or a severity; {key} is {t.spec.kind}")
+    if is_severity:
+        if t.raw not in _SEVERITY_RANK:
+            raise KnowledgeError(f"{t.where}: {t.raw!r} is not a severity; allowed: {', '.join(SEVERITY_RANK)}")
+        return (lambda f: _SEVERITY_RANK[f.get(key) or "none"]), _SEVERITY_RANK[t.raw]
+    bound = _resolve(t.raw, t.policy, t.where)
+    if isinstance(bound, bool) or not isinstance(bound, (int, float)):
+        raise KnowledgeError(f"{t.where}: operator {t.op} needs a number; got {t.raw!r}")
+    return (lambda f: f.get(key)), bound
+
+
+def _compile_order(t: _Operand) -> Compiled:
+    get, bound = _order_operand(t)
+    compare = _ORDER[t.op]
+    return lambda f: (v := get(f)) is not None and compare(v, bound)
+
+
+def _compile_known(t: _Operand) -> Compiled:
+    key, want = t.key, bool(t.raw)
+    return lambda f: (f.get(key) is not None) is want
+
+
+def _compile_has(t: _Operand) -> Compiled:
+    if t.spec.kind != "list":
+        raise KnowledgeError(f"{t.where}: operator has needs a list fact; {t.key} is {t.spec.kind}")
+    key, item = t.key, t.raw
+    return lambda f: item in (f.get(key) or ())
+
+
+def _compile_membership(t: _Operand) -> Compiled:
+    values = list(t.raw or [])
+    if not values:
+        raise KnowledgeError(f"{t.where}: operator {t.op} needs a non-empty list")
+    for v in values:
+        _check_value(t.spec, v, t.where)
+    key, allowed = t.key, frozenset(values)
+    if t.op == "in":
+        return lambda f: f.get(key) in allowed
+    return lambda f: f.get(key) not in allowed
+
+
+def _compile_equality(t: _Operand) -> Compiled:
+    value = _resolve(t.raw, t.policy, t.where)
+    _check_value(t.spec, value, t.where)
+    key, compare = t.key, _EQUALITY[t.op]
+    return lambda f: compare(f.get(key), value)
+
+
+#: operator name -> its compiler (checks the operand against the fact, returns the closure)
+OPERATORS: dict[str, Callable[[_Operand], Compiled]] = {
+    "is": _compile_equality, "is_not": _compile_equality,
+    "in": _compile_membership, "not_in": _compile_membership,
+    "lt": _compile_order, "le": _compile_order, "gt": _compile_order, "ge": _compile_order,
+    "has": _compile_has, "known": _compile_known,
+}
