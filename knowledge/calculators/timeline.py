@@ -98,12 +98,30 @@ def premedication_schedule(elective: Any, accelerated: Any, exam_at: dt.datetime
     """
     electives = list(elective) if isinstance(elective, (list, tuple)) else [elective]
     first = accelerated if urgency == "emergency" else electives[0]
-    emergency_note = ("Emergency: the exam is not delayed for premedication - give what fits in the time left, "
-                      "use a different agent from any culprit, resuscitation team ready")
+    early = _schedule_without_lead(first, exam_at, now, urgency)
+    if early is not None:
+        return early
+    lead = hours_between(now, exam_at)
+    regimen, warnings = _regimen_for_lead(electives, accelerated, lead, urgency)
+    if regimen is accelerated and lead < accelerated.minimum_lead_hours:
+        warnings.append(_short_of_accelerated(accelerated, lead, exam_at, urgency))
+    doses = lay_out(regimen, exam_at, now)
+    warnings += _give_overdue_now(doses, now)
+    return Schedule(regimen, lead, doses, warnings)
+
+
+_EMERGENCY_NOTE = ("Emergency: the exam is not delayed for premedication - give what fits in the time left, "
+                   "use a different agent from any culprit, resuscitation team ready")
+
+
+def _schedule_without_lead(first: Any, exam_at: dt.datetime | None, now: dt.datetime | None,
+                           urgency: str) -> Schedule | None:
+    """The schedule when the time left cannot be used: no exam time, no 'now', or an exam time already
+    past (laid out against the exam time, with a warning); None when there is time left to plan with."""
     if exam_at is None:
         w = ["No scheduled exam time: doses are given as hours before the exam"]
         if urgency == "emergency":
-            w.append(emergency_note)
+            w.append(_EMERGENCY_NOTE)
         return Schedule(first, None, lay_out(first, None, None), w)
     if now is None:
         return Schedule(first, None, lay_out(first, exam_at, None),
@@ -114,39 +132,47 @@ def premedication_schedule(elective: Any, accelerated: Any, exam_at: dt.datetime
         return Schedule(first, lead, lay_out(first, exam_at, None),
                         [f"The scheduled time {exam_at.isoformat()} is before as_of {now.isoformat()}: "
                          "the doses are shown as they would have been given; check the exam time"])
-    warnings: list[str] = []
+    return None
+
+
+def _regimen_for_lead(electives: list[Any], accelerated: Any, lead: float, urgency: str) -> tuple[Any, list[str]]:
+    """The first elective regimen that fits the ``lead`` hours left (not in an emergency), else the
+    accelerated one; with the warnings that say why."""
     fitting = [r for r in electives if lead >= r.minimum_lead_hours] if urgency != "emergency" else []
     if fitting:
         regimen = fitting[0]
-        if regimen is not electives[0]:
-            warnings.append(f"{lead:.1f} h left before the exam: not enough for the {electives[0].name.lower()} "
-                            f"(needs {electives[0].minimum_lead_hours:g} h); the {regimen.name.lower()} fits")
-    else:
-        regimen = accelerated
-        if urgency == "emergency":
-            warnings.append(emergency_note)
-        else:
-            names = " or the ".join(f"{r.name.lower()} (needs {r.minimum_lead_hours:g} h)" for r in electives)
-            warnings.append(f"Only {lead:.1f} h left before the exam: not enough for the {names}; the accelerated "
-                            "regimen is offered instead")
-        if lead < accelerated.minimum_lead_hours:
-            if urgency == "elective":
-                later = exam_at + dt.timedelta(hours=accelerated.minimum_lead_hours - lead)
-                warnings.append(
-                    f"Even the accelerated regimen needs at least {accelerated.minimum_lead_hours:g} h (ACR Manual: "
-                    f"4-5 h): consider moving the exam to {later.strftime('%Y-%m-%d %H:%M')} or later, or an "
-                    "alternative that needs no iodinated contrast")
-            else:
-                warnings.append(
-                    f"Less than the accelerated regimen's {accelerated.minimum_lead_hours:g} h is left: give the "
-                    "doses that fit, use a different agent, resuscitation team ready; do not delay an "
-                    f"{urgency} exam for it")
-    doses = lay_out(regimen, exam_at, now)
+        if regimen is electives[0]:
+            return regimen, []
+        return regimen, [f"{lead:.1f} h left before the exam: not enough for the {electives[0].name.lower()} "
+                         f"(needs {electives[0].minimum_lead_hours:g} h); the {regimen.name.lower()} fits"]
+    if urgency == "emergency":
+        return accelerated, [_EMERGENCY_NOTE]
+    names = " or the ".join(f"{r.name.lower()} (needs {r.minimum_lead_hours:g} h)" for r in electives)
+    return accelerated, [f"Only {lead:.1f} h left before the exam: not enough for the {names}; the accelerated "
+                         "regimen is offered instead"]
+
+
+def _short_of_accelerated(accelerated: Any, lead: float, exam_at: dt.datetime, urgency: str) -> str:
+    """Less than even the accelerated regimen's minimum is left: move an elective exam; otherwise give what
+    fits and do not delay."""
+    if urgency == "elective":
+        later = exam_at + dt.timedelta(hours=accelerated.minimum_lead_hours - lead)
+        return (f"Even the accelerated regimen needs at least {accelerated.minimum_lead_hours:g} h (ACR Manual: "
+                f"4-5 h): consider moving the exam to {later.strftime('%Y-%m-%d %H:%M')} or later, or an "
+                "alternative that needs no iodinated contrast")
+    return (f"Less than the accelerated regimen's {accelerated.minimum_lead_hours:g} h is left: give the "
+            "doses that fit, use a different agent, resuscitation team ready; do not delay an "
+            f"{urgency} exam for it")
+
+
+def _give_overdue_now(doses: list[Dose], now: dt.datetime) -> list[str]:
+    """A dose whose time has already passed is moved to ``now``; one warning each."""
+    warnings = []
     for d in doses:
         if d.at is not None and hours_between(now, d.at) < 0:
             d.at = now
             warnings.append(f"{d.drug} {d.dose} ({d.route}) was due {d.hours_before:g} h before: give it now")
-    return Schedule(regimen, lead, doses, warnings)
+    return warnings
 
 
 def metformin_timeline(contrast_at: dt.datetime | None,

@@ -96,8 +96,21 @@ def _rel_hours(when: Any, scheduled: dt.datetime | None) -> float | None:
 def timeline(decision: m.Decision, knowledge: Knowledge, scheduled_at: dt.datetime | None = None) -> list[TimelineItem]:
     """The timed actions of a decision, in hours from the contrast dose (negative = before)."""
     items = [TimelineItem("contrast", "contrast", 0.0, 0.0, "contrast given")]
+    items += _premedication_items(decision, knowledge, scheduled_at)
+    if decision.metformin.hold:
+        items.append(_metformin_item(decision.metformin, scheduled_at))
+    if decision.renal.hydration_indicated:
+        items.append(_hydration_item(decision.renal, scheduled_at))
+    items.sort(key=lambda i: (i.start_h, i.kind))
+    return items
+
+
+def _premedication_items(decision: m.Decision, knowledge: Knowledge,
+                         scheduled_at: dt.datetime | None) -> list[TimelineItem]:
+    """The premedication doses: the decision's laid-out schedule, else the regimen's steps."""
     pre = decision.premedication
     schedule = getattr(pre, "schedule", None)
+    items: list[TimelineItem] = []
     if schedule:
         for step in schedule:
             h = getattr(step, "hours_before", None)
@@ -118,34 +131,37 @@ def timeline(decision: m.Decision, knowledge: Knowledge, scheduled_at: dt.dateti
                 while h > 0:
                     items.append(TimelineItem("premedication", label, -h, -h, reg.name))
                     h -= step.repeat_every_hours
-    met = decision.metformin
-    if met.hold:
-        start = _rel_hours(getattr(met, "hold_from", None), scheduled_at)
-        start = 0.0 if start is None else start
-        until = _rel_hours(getattr(met, "hold_until", None), scheduled_at)
-        recheck = getattr(met, "recheck_after_hours", None)
-        if until is not None:
-            end = until
-        elif isinstance(recheck, (int, float)):
-            end = start + float(recheck)
-        else:
-            end = start + METFORMIN_HOLD_HOURS
-        items.append(TimelineItem("metformin", "metformin withheld", start, end, met.advice or ""))
-    if decision.renal.hydration_indicated:
-        plan = getattr(decision.renal, "hydration_plan", None)
-        start = _rel_hours(getattr(plan, "start_at", None), scheduled_at) if plan else None
-        stop = _rel_hours(getattr(plan, "stop_at", None), scheduled_at) if plan else None
-        if plan is not None:
-            detail = (f"{plan.fluid} {plan.rate_ml_h:g} mL/h ({plan.rate_ml_kg_h:g} mL/kg/h): "
-                      f"{plan.volume_before_ml:g} mL before, {plan.volume_after_ml:g} mL after, {plan.total_ml:g} mL in all")
-        else:
-            detail = decision.renal.hydration_regimen or ""
-        if start is not None and stop is not None and stop > start:
-            items.append(TimelineItem("hydration", "IV hydration", start, stop, detail))
-        else:
-            items.append(TimelineItem("hydration", "IV hydration around the contrast", 0.0, 0.0, detail))
-    items.sort(key=lambda i: (i.start_h, i.kind))
     return items
+
+
+def _metformin_item(met: Any, scheduled_at: dt.datetime | None) -> TimelineItem:
+    """Metformin withheld from the contrast until kidney function is re-checked."""
+    start = _rel_hours(getattr(met, "hold_from", None), scheduled_at)
+    start = 0.0 if start is None else start
+    until = _rel_hours(getattr(met, "hold_until", None), scheduled_at)
+    recheck = getattr(met, "recheck_after_hours", None)
+    if until is not None:
+        end = until
+    elif isinstance(recheck, (int, float)):
+        end = start + float(recheck)
+    else:
+        end = start + METFORMIN_HOLD_HOURS
+    return TimelineItem("metformin", "metformin withheld", start, end, met.advice or "")
+
+
+def _hydration_item(renal: Any, scheduled_at: dt.datetime | None) -> TimelineItem:
+    """IV hydration: from its start to its stop when the plan has clock times, else around the contrast."""
+    plan = getattr(renal, "hydration_plan", None)
+    start = _rel_hours(getattr(plan, "start_at", None), scheduled_at) if plan else None
+    stop = _rel_hours(getattr(plan, "stop_at", None), scheduled_at) if plan else None
+    if plan is not None:
+        detail = (f"{plan.fluid} {plan.rate_ml_h:g} mL/h ({plan.rate_ml_kg_h:g} mL/kg/h): "
+                  f"{plan.volume_before_ml:g} mL before, {plan.volume_after_ml:g} mL after, {plan.total_ml:g} mL in all")
+    else:
+        detail = renal.hydration_regimen or ""
+    if start is not None and stop is not None and stop > start:
+        return TimelineItem("hydration", "IV hydration", start, stop, detail)
+    return TimelineItem("hydration", "IV hydration around the contrast", 0.0, 0.0, detail)
 
 
 # --------------------------------------------------------------------------------------------------
@@ -281,6 +297,24 @@ def note_sections(decision: m.Decision, knowledge: Knowledge, scheduled_at: dt.d
     alerts = alert_lines(decision)
     if alerts:
         sections.append(("Alerts", alerts))
+    sections.append(("Exam", _exam_lines(decision, exam, scheduled_at)))
+    if case is not None:
+        sections.append(("Inputs used", case_input_lines(case)))
+    sources: list[str] = []  # numbered in the order first cited
+    for i in range(len(decision.roles)):
+        sections.append(_role_section(decision, i, exam, knowledge, sources))
+    timed = timed_lines(decision, knowledge, scheduled_at)
+    regimen = regimen_line(decision, knowledge)
+    if regimen:
+        timed.insert(0, f"Premedication: {regimen}")
+    if timed:
+        sections.append(("Precautions and timed actions", timed))
+    sections.append(("Cautions", list(decision.cautions)))
+    return title, sections + _closing_sections(decision, knowledge, sources)
+
+
+def _exam_lines(decision: m.Decision, exam: m.Exam, scheduled_at: dt.datetime | None) -> list[str]:
+    """The note's "Exam" section: exam, time, kidney function, urgency, exam notes, creatinine age."""
     head = [f"Exam: {decision.exam_name} ({exam.modality.value}); contrast {decision.contrast.value}"]
     if scheduled_at is not None:
         head.append(f"Scheduled: {scheduled_at.strftime('%a %d %b %Y %H:%M')}")
@@ -298,59 +332,61 @@ def note_sections(decision: m.Decision, knowledge: Knowledge, scheduled_at: dt.d
     if r.creatinine_age_days is not None:
         head.append(f"Creatinine sample: {human_ago(r.creatinine_age_days)} at the exam time"
                     + (" - older than the policy allows; repeat it" if r.creatinine_stale else ""))
-    sections.append(("Exam", head))
-    if case is not None:
-        sections.append(("Inputs used", case_input_lines(case)))
-    sources: list[str] = []
-    for i, role in enumerate(decision.roles):
-        chosen = next((o for o in role.options if o.chosen), None)
-        lines: list[str] = []
-        if chosen is None:
-            req = "" if role.required else " (optional)"
-            usable = [o.name for o in role.options if o.verdict.severity <= 1]
-            lines.append("Agent: none planned" + (f" (usable: {', '.join(usable)})" if usable else
-                                                  " - no agent of this role can be used"))
-            sections.append((f"{ROUTE_WORDS[role.route].capitalize()}{req}: {role.purpose}", lines))
-            continue
-        agent = knowledge.agents[chosen.agent]
-        lines.append(f"Agent: {chosen.name} ({agent_kind(agent)}): {verdict_words(chosen.verdict)}")
-        lines += dose_lines(decision, i, exam)
-        for reason in chosen.reasons:
-            if reason.source not in sources:
-                sources.append(reason.source)
-            lines.append(f"Why: {reason.text} [{sources.index(reason.source) + 1}]")
-        for act in chosen.actions:
-            lines.append(f"Do: {act}")
-        usual, other = split_options(role)
-        usable = [o.name for o in usual if not o.chosen and o.verdict.severity <= 1]
-        if usable:
-            lines.append("Also usable: " + ", ".join(usable))
-        ruled = [f"{o.name} ({verdict_words(o.verdict)})" for o in usual if o.verdict.severity >= 2]
-        if len(ruled) > 4:
-            lines.append(f"Ruled out: {len(ruled)} agents (" + ", ".join(ruled[:3]) + ", ...)")
-        elif ruled:
-            lines.append("Ruled out: " + ", ".join(ruled))
-        req = "" if role.required else " (optional)"
-        sections.append((f"{ROUTE_WORDS[role.route].capitalize()}{req}: {role.purpose}", lines))
-    timed = timed_lines(decision, knowledge, scheduled_at)
-    regimen = regimen_line(decision, knowledge)
-    if regimen:
-        timed.insert(0, f"Premedication: {regimen}")
-    if timed:
-        sections.append(("Precautions and timed actions", timed))
-    sections.append(("Cautions", list(decision.cautions)))
+    return head
+
+
+def _role_section(decision: m.Decision, i: int, exam: m.Exam, knowledge: Knowledge,
+                  sources: list[str]) -> tuple[str, list[str]]:
+    """One role's section: the planned agent, its dose, why (numbered into ``sources``), what to do, and
+    the other usual agents; or that none is planned."""
+    role = decision.roles[i]
+    req = "" if role.required else " (optional)"
+    heading = f"{ROUTE_WORDS[role.route].capitalize()}{req}: {role.purpose}"
+    chosen = next((o for o in role.options if o.chosen), None)
+    if chosen is None:
+        usable = [o.name for o in role.options if o.verdict.severity <= 1]
+        return heading, ["Agent: none planned" + (f" (usable: {', '.join(usable)})" if usable else
+                                                  " - no agent of this role can be used")]
+    agent = knowledge.agents[chosen.agent]
+    lines = [f"Agent: {chosen.name} ({agent_kind(agent)}): {verdict_words(chosen.verdict)}"]
+    lines += dose_lines(decision, i, exam)
+    for reason in chosen.reasons:
+        if reason.source not in sources:
+            sources.append(reason.source)
+        lines.append(f"Why: {reason.text} [{sources.index(reason.source) + 1}]")
+    lines += [f"Do: {act}" for act in chosen.actions]
+    return heading, lines + _other_agent_lines(role)
+
+
+def _other_agent_lines(role: m.RoleDecision) -> list[str]:
+    """The role's other usual agents: those also usable, and those ruled out (at most three named)."""
+    usual, _ = split_options(role)
+    lines = []
+    usable = [o.name for o in usual if not o.chosen and o.verdict.severity <= 1]
+    if usable:
+        lines.append("Also usable: " + ", ".join(usable))
+    ruled = [f"{o.name} ({verdict_words(o.verdict)})" for o in usual if o.verdict.severity >= 2]
+    if len(ruled) > 4:
+        lines.append(f"Ruled out: {len(ruled)} agents (" + ", ".join(ruled[:3]) + ", ...)")
+    elif ruled:
+        lines.append("Ruled out: " + ", ".join(ruled))
+    return lines
+
+
+def _closing_sections(decision: m.Decision, knowledge: Knowledge,
+                      sources: list[str]) -> list[tuple[str, list[str]]]:
+    """The numbered sources (the policy's own after the rules') and the knowledge and policy versions."""
     pol = knowledge.policy
     for ref in pol.based_on:
         text = knowledge.cite([ref], m.Certainty.verified)
         if text not in sources:
             sources.append(text)
-    sections.append(("Sources", [f"[{i}] {text}" for i, text in enumerate(sources, start=1)]))
-    sections.append(("Knowledge", [
-        f"Knowledge version {decision.knowledge_version}; policy {pol.name} ({decision.policy}, "
-        f"{knowledge.policy_version})",
-        "No patient identifiers are recorded in this note.",
-    ]))
-    return title, sections
+    return [("Sources", [f"[{i}] {text}" for i, text in enumerate(sources, start=1)]),
+            ("Knowledge", [
+                f"Knowledge version {decision.knowledge_version}; policy {pol.name} ({decision.policy}, "
+                f"{knowledge.policy_version})",
+                "No patient identifiers are recorded in this note.",
+            ])]
 
 
 def _value_words(spec: FieldSpec, value: Any) -> str:
