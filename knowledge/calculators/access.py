@@ -32,6 +32,16 @@ class AccessCheck:
         return "; ".join(self.messages)
 
 
+def _check_inputs(gauge: int, site: str, flow_ml_s: float) -> None:
+    """Gauge, site and flow in their valid ranges, else a RangeError naming the field."""
+    if not (GAUGE_RANGE[0] <= gauge <= GAUGE_RANGE[1]):
+        raise out_of_range("iv_access.gauge", gauge, GAUGE_RANGE[0], GAUGE_RANGE[1], "gauge")
+    if site not in SITES:
+        raise RangeError(field="iv_access.site", value=site, problem="is not allowed", allowed=", ".join(SITES))
+    if not (FLOW_RANGE[0] <= flow_ml_s <= FLOW_RANGE[1]):
+        raise out_of_range("flow_ml_s", flow_ml_s, FLOW_RANGE[0], FLOW_RANGE[1], "mL/s")
+
+
 def check_access(gauge: int, site: str, flow_ml_s: float) -> AccessCheck:
     """Is catheter ``gauge`` at ``site`` fit for ``flow_ml_s`` by power injection? (source ``acr-manual``)
 
@@ -45,12 +55,7 @@ def check_access(gauge: int, site: str, flow_ml_s: float) -> AccessCheck:
     >>> check_access(20, "antecubital", 4.0).ok
     True
     """
-    if not (GAUGE_RANGE[0] <= gauge <= GAUGE_RANGE[1]):
-        raise out_of_range("iv_access.gauge", gauge, GAUGE_RANGE[0], GAUGE_RANGE[1], "gauge")
-    if site not in SITES:
-        raise RangeError(field="iv_access.site", value=site, problem="is not allowed", allowed=", ".join(SITES))
-    if not (FLOW_RANGE[0] <= flow_ml_s <= FLOW_RANGE[1]):
-        raise out_of_range("flow_ml_s", flow_ml_s, FLOW_RANGE[0], FLOW_RANGE[1], "mL/s")
+    _check_inputs(gauge, site, flow_ml_s)
     ok = True
     msgs: list[str] = []
     if site == "central_not_power_rated":

@@ -95,50 +95,61 @@ def case_from_query(query: str) -> dict[str, Any]:
         key = key.strip().lower()
         values[key] = value  # the last one wins, as in a form
         repeated.setdefault(key, []).append(value)
-
-    def read(specs: tuple[FieldSpec, ...]) -> dict[str, Any]:
-        out: dict[str, Any] = {}
-        for s in specs:
-            if s.name == "patient":
-                continue
-            key = key_of(s)
-            if s.kind == "model":
-                sub = read(s.children)
-                if sub:
-                    if s.path == "patient.creatinine" and "value" in sub:
-                        sub.setdefault("unit", "mg/dL")  # links made by hand often leave the unit out
-                    elif s.path == "patient.creatinine":
-                        continue  # a unit or date without a value is no creatinine
-                    out[s.name] = sub
-            elif s.kind == "list" and s.children:
-                rows = []
-                for text in repeated.get(key, []):
-                    parts = [p.strip() for p in text.split(":")]
-                    row = {c.name: _item_value(c, p) for c, p in zip(s.children, parts) if p}
-                    if row:
-                        rows.append(row)
-                if rows:
-                    out[s.name] = rows
-            elif s.kind == "list":
-                items = [v.strip() for v in repeated.get(key, []) if v.strip()]
-                if items:
-                    out[s.name] = items
-            elif s.kind == "bool":
-                if key in values:
-                    flag = _flag(values[key])
-                    if flag is not False:
-                        out[s.name] = flag
-            elif values.get(key, "").strip():
-                text = values[key].strip()
-                out[s.name] = _ALIASES.get(text.lower(), text)
-        return out
-
     specs = case_specs()
-    case = read(specs)
-    patient = read(next(s for s in specs if s.name == "patient").children)
+    case = _read_fields(specs, values, repeated)
+    patient = _read_fields(next(s for s in specs if s.name == "patient").children, values, repeated)
     if patient:
         case["patient"] = patient
     return case
+
+
+_NOTHING = object()  # a field the query does not set
+
+
+def _read_fields(specs: tuple[FieldSpec, ...], values: dict[str, str],
+                 repeated: dict[str, list[str]]) -> dict[str, Any]:
+    """The fields of ``specs`` the query sets (``patient`` is read on its own)."""
+    out: dict[str, Any] = {}
+    for s in specs:
+        if s.name == "patient":
+            continue
+        value = _read_field(s, values, repeated)
+        if value is not _NOTHING:
+            out[s.name] = value
+    return out
+
+
+def _read_field(s: FieldSpec, values: dict[str, str], repeated: dict[str, list[str]]) -> Any:
+    """One field's value from the query, or ``_NOTHING``: a nested model, repeated rows, a list, a flag
+    or the text as typed (with its alias)."""
+    key = key_of(s)
+    if s.kind == "model":
+        sub = _read_fields(s.children, values, repeated)
+        if not sub:
+            return _NOTHING
+        if s.path == "patient.creatinine" and "value" in sub:
+            sub.setdefault("unit", "mg/dL")  # links made by hand often leave the unit out
+        elif s.path == "patient.creatinine":
+            return _NOTHING  # a unit or date without a value is no creatinine
+        return sub
+    if s.kind == "list" and s.children:
+        rows = [row for row in (_read_row(s, text) for text in repeated.get(key, [])) if row]
+        return rows or _NOTHING
+    if s.kind == "list":
+        return [v.strip() for v in repeated.get(key, []) if v.strip()] or _NOTHING
+    if s.kind == "bool":
+        flag = _flag(values[key]) if key in values else False
+        return _NOTHING if flag is False else flag
+    if values.get(key, "").strip():
+        text = values[key].strip()
+        return _ALIASES.get(text.lower(), text)
+    return _NOTHING
+
+
+def _read_row(s: FieldSpec, text: str) -> dict[str, Any]:
+    """One repeated key's ``:``-separated row (e.g. a prior reaction); empty parts are left out."""
+    parts = [p.strip() for p in text.split(":")]
+    return {c.name: _item_value(c, p) for c, p in zip(s.children, parts) if p}
 
 
 def _item_value(spec: FieldSpec, part: str) -> Any:

@@ -232,42 +232,12 @@ def _plain_policy(p: Path, raw: Any = None, blob: bytes | None = None) -> tuple[
 
 def load_knowledge(data_dir: Path | str | None = None, policy: Path | str | m.Policy | None = None) -> Knowledge:
     """Read, validate and index every table and the policy. Raises :class:`KnowledgeError`."""
-    base = Path(data_dir) if data_dir else DATA_DIR
-    raw: dict[str, Any] = {}
-    digest = hashlib.sha256()
-    for name in TABLES:
-        data, blob = _read_yaml(base / f"{name}.yaml")
-        raw[name] = data
-        digest.update(name.encode() + b"\0" + blob + b"\0")
+    raw, version = _read_tables(Path(data_dir) if data_dir else DATA_DIR)
     if isinstance(policy, m.Policy):  # an already validated policy object (tests sweep thresholds this way)
         pol, pol_blob, overlay, base_policy = policy, policy.model_dump_json().encode("utf-8"), None, None
     else:
         pol, pol_blob, overlay, base_policy = load_policy_file(policy)
-
-    models = {
-        "sources": m.Source,
-        "agents": m.Agent,
-        "routes": m.RouteCompatibility,
-        "exams": m.Exam,
-        "rules": m.Rule,
-    }
-    parsed = {name: _validate_list(models[name], raw[name], name) for name in TABLES}
-    for name in ("sources", "agents", "exams", "rules"):
-        _unique(parsed[name], name)
-    _unique(parsed["routes"], "routes", "route")
-    tables = m.Tables(**parsed)
-
-    k = Knowledge(
-        tables=tables,
-        policy=pol,
-        version=digest.hexdigest()[:12],
-        policy_version=hashlib.sha256(pol_blob).hexdigest()[:12],
-    )
-    k.sources = {s.id: s for s in tables.sources}
-    k.agents = {a.id: a for a in tables.agents}
-    k.exams = {e.id: e for e in tables.exams}
-    k.rules = {r.id: r for r in tables.rules}
-    k.regimens = {r.id: r for r in pol.regimens}
+    k = _indexed(_parse_tables(raw), pol, version, hashlib.sha256(pol_blob).hexdigest()[:12])
     if overlay is not None:  # department overlay: check its references, keep only the strengths held
         ov_mod.check_overlay(overlay, k.agents, k.exams, Path(policy).name)
         k.overlay, k.base_policy = overlay, base_policy
@@ -275,7 +245,56 @@ def load_knowledge(data_dir: Path | str | None = None, policy: Path | str | m.Po
     _check_references(k)
     _build_compatibility(k)
     _check_exam_roles(k)
-    for rule in tables.rules:
+    _compile_rules(k)
+    _build_candidates(k)
+    return k
+
+
+def _read_tables(base: Path) -> tuple[dict[str, Any], str]:
+    """Every table's YAML, and the knowledge version: the first 12 hex digits of their SHA-256."""
+    raw: dict[str, Any] = {}
+    digest = hashlib.sha256()
+    for name in TABLES:
+        data, blob = _read_yaml(base / f"{name}.yaml")
+        raw[name] = data
+        digest.update(name.encode() + b"\0" + blob + b"\0")
+    return raw, digest.hexdigest()[:12]
+
+
+#: the strict model of each table's records
+_TABLE_MODELS: dict[str, type] = {
+    "sources": m.Source,
+    "agents": m.Agent,
+    "routes": m.RouteCompatibility,
+    "exams": m.Exam,
+    "rules": m.Rule,
+}
+
+
+def _parse_tables(raw: dict[str, Any]) -> m.Tables:
+    """Every record validated by its model; ids unique in each table (routes: one record per route)."""
+    parsed = {name: _validate_list(_TABLE_MODELS[name], raw[name], name) for name in TABLES}
+    for name in ("sources", "agents", "exams", "rules"):
+        _unique(parsed[name], name)
+    _unique(parsed["routes"], "routes", "route")
+    return m.Tables(**parsed)
+
+
+def _indexed(tables: m.Tables, pol: m.Policy, version: str, policy_version: str) -> Knowledge:
+    """The Knowledge with its indexes by id (rules not compiled yet)."""
+    k = Knowledge(tables=tables, policy=pol, version=version, policy_version=policy_version)
+    k.sources = {s.id: s for s in tables.sources}
+    k.agents = {a.id: a for a in tables.agents}
+    k.exams = {e.id: e for e in tables.exams}
+    k.rules = {r.id: r for r in tables.rules}
+    k.regimens = {r.id: r for r in pol.regimens}
+    return k
+
+
+def _compile_rules(k: Knowledge) -> None:
+    """Each rule's condition compiled, its text and actions filled from the policy, its reason built once."""
+    pol = k.policy
+    for rule in k.tables.rules:
         where = f"rules.yaml: rule {rule.id}"
         source_text, text = k.cite(rule.sources, rule.certainty), _fill(rule.text, pol, where)
         reason = m.Reason.model_construct(rule=rule.id, text=text, verdict=rule.effect.verdict, source=source_text,
@@ -283,8 +302,6 @@ def load_knowledge(data_dir: Path | str | None = None, policy: Path | str | m.Po
         compiled = CompiledRule(rule, compile_condition(rule.when, pol, where, rule.scope), source_text, text,
                                 tuple(_fill(a, pol, where) for a in rule.effect.actions), reason)
         (k.agent_rules if rule.scope is m.Scope.agent else k.case_rules).append(compiled)
-    _build_candidates(k)
-    return k
 
 
 def exam_facts(exam: m.Exam, policy: m.Policy) -> dict[str, Any]:
