@@ -119,29 +119,13 @@ def diff_decisions(a: dict, b: dict) -> list[str]:
 
 
 def cmd_policy_diff(args: argparse.Namespace) -> int:
-    from ..decision.engine import decide
-    from ..decision.department import resolve_exam
-    from ..review.columns import CaseBuilder, RowError
-    from ..review.worklist import read_worklist
-
     k_new = load_knowledge(policy=args.file)
     if k_new.overlay is None:
         raise KnowledgeError(f"{Path(args.file).name}: not an overlay (no 'base'); allowed: a department overlay "
                              "file (see examples/department-overlay.yaml)")
     k_old = load_knowledge(policy=DATA_DIR / "policies" / f"{k_new.overlay.base}.yaml")
     if args.cases:
-        header, rows = read_worklist(args.cases)
-        builder = CaseBuilder()
-        as_of = _as_of(args).isoformat()
-        cases = []
-        for row in rows:
-            c = builder.case_dict(row, resolve_exam(row["exam"], k_new))  # local codes mean the same for both
-            c["as_of"] = as_of
-            try:  # the cells are text: read them as the review reads them
-                c = builder.validate(c).model_dump(mode="json", exclude_unset=True)
-            except (ContrastAidError, RowError):
-                pass  # decide names the problem below
-            cases.append((str(row.get("order_id", "")), c))
+        cases = _worklist_cases(args, k_new)
         what = f"{len(cases)} orders of {Path(args.cases).name}"
     else:
         cases = _load_bank(SCENARIO_BANK)
@@ -153,27 +137,58 @@ def cmd_policy_diff(args: argparse.Namespace) -> int:
               f"({k_new.policy_version}); knowledge {k_new.version}; {what}\n")
     changed = skipped = 0
     for ident, case in cases:
-        try:
-            old = decide(case, k_old)
-        except ContrastAidError as exc:
-            out.write(f"- {ident}: skipped ({exc.message})\n")
-            skipped += 1
-            continue
-        try:
-            new = decide({**case, "exam": resolve_exam(case["exam"], k_new)}, k_new)
-        except ContrastAidError as exc:
-            out.write(f"- {ident}: rejected under the overlay only ({exc.message})\n")
-            changed += 1
-            continue
-        lines = diff_decisions(_summary(old), _summary(new))
-        if lines:
-            changed += 1
-            out.write(f"- {ident} ({case['exam']}):\n")
-            for line in lines:
-                out.write(f"    {line}\n")
+        outcome = _diff_one(ident, case, k_old, k_new, out)
+        changed += outcome == "changed"
+        skipped += outcome == "skipped"
     out.write(f"{changed} of {len(cases)} changed, {len(cases) - changed - skipped} unchanged"
               + (f", {skipped} skipped" if skipped else "") + "\n")
     return 0
+
+
+def _worklist_cases(args: argparse.Namespace, k_new) -> list[tuple[str, dict]]:
+    """The orders of ``--cases`` as (order id, case), read as the review reads them, as of ``--as-of``."""
+    from ..decision.department import resolve_exam
+    from ..review.columns import CaseBuilder, RowError
+    from ..review.worklist import read_worklist
+
+    header, rows = read_worklist(args.cases)
+    builder = CaseBuilder()
+    as_of = _as_of(args).isoformat()
+    cases = []
+    for row in rows:
+        c = builder.case_dict(row, resolve_exam(row["exam"], k_new))  # local codes mean the same for both
+        c["as_of"] = as_of
+        try:  # the cells are text: read them as the review reads them
+            c = builder.validate(c).model_dump(mode="json", exclude_unset=True)
+        except (ContrastAidError, RowError):
+            pass  # decide names the problem below
+        cases.append((str(row.get("order_id", "")), c))
+    return cases
+
+
+def _diff_one(ident: str, case: dict, k_old, k_new, out) -> str:
+    """Decide one case under the base and under the overlay and write what differs; returns "changed",
+    "skipped" (the base rejects it) or "unchanged"."""
+    from ..decision.engine import decide
+    from ..decision.department import resolve_exam
+
+    try:
+        old = decide(case, k_old)
+    except ContrastAidError as exc:
+        out.write(f"- {ident}: skipped ({exc.message})\n")
+        return "skipped"
+    try:
+        new = decide({**case, "exam": resolve_exam(case["exam"], k_new)}, k_new)
+    except ContrastAidError as exc:
+        out.write(f"- {ident}: rejected under the overlay only ({exc.message})\n")
+        return "changed"
+    lines = diff_decisions(_summary(old), _summary(new))
+    if not lines:
+        return "unchanged"
+    out.write(f"- {ident} ({case['exam']}):\n")
+    for line in lines:
+        out.write(f"    {line}\n")
+    return "changed"
 
 
 # ----------------------------------------------------------------------------- review

@@ -307,12 +307,22 @@ def cmd_serve(args: argparse.Namespace) -> int:
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(prog="contrast-aid", description="Decision aid for choosing a contrast agent.")
     sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
+    _add_case_parsers(sub)
+    _add_knowledge_parsers(sub)
+    _add_serve_parser(sub)
+    add_dose_parser(sub)
+    add_department_parsers(sub, _Parser)  # policy check|diff, review (department overlay, worklists)
+    return parser
 
-    def with_policy(p: argparse.ArgumentParser) -> argparse.ArgumentParser:
-        p.add_argument("--policy", metavar="FILE", help="a local policy YAML file (default: the bundled one)")
-        return p
 
-    p = with_policy(sub.add_parser("decide", help="decide the contrast options for a case (JSON on stdout)"))
+def _with_policy(p: argparse.ArgumentParser) -> argparse.ArgumentParser:
+    p.add_argument("--policy", metavar="FILE", help="a local policy YAML file (default: the bundled one)")
+    return p
+
+
+def _add_case_parsers(sub) -> None:
+    """decide, exams, agents, egfr."""
+    p = _with_policy(sub.add_parser("decide", help="decide the contrast options for a case (JSON on stdout)"))
     p.add_argument("case", metavar="CASE.json", help="the case file, or - for stdin")
     p.add_argument("--as-of", dest="as_of", metavar="T",
                    help="the time to decide for (ISO 8601, e.g. 2026-12-01T15:00); default: the case's as_of, "
@@ -337,14 +347,17 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_egfr)
 
+
+def _add_knowledge_parsers(sub) -> None:
+    """knowledge check|lint|schema|facts."""
     kn = sub.add_parser("knowledge", help="check the knowledge tables or print their schema")
     ksub = kn.add_subparsers(dest="knowledge_command", required=True, parser_class=_Parser)
-    p = with_policy(ksub.add_parser("check", help="validate the tables and the policy, print counts"))
+    p = _with_policy(ksub.add_parser("check", help="validate the tables and the policy, print counts"))
     p.add_argument("--data", metavar="DIR", help="a folder of tables to check instead of the bundled one")
     p.add_argument("--lint", action="store_true", help="also print the lint (see `knowledge lint`)")
     p.set_defaults(func=cmd_knowledge_check)
-    p = with_policy(ksub.add_parser("lint", help="rules that never fire, sources never cited, agents never "
-                                                 "offered, and the exam x patient factor coverage"))
+    p = _with_policy(ksub.add_parser("lint", help="rules that never fire, sources never cited, agents never "
+                                                  "offered, and the exam x patient factor coverage"))
     p.add_argument("--data", metavar="DIR", help="a folder of tables to lint instead of the bundled one")
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_knowledge_lint)
@@ -353,7 +366,9 @@ def build_parser() -> argparse.ArgumentParser:
     p = ksub.add_parser("facts", help="the facts rule conditions may test")
     p.set_defaults(func=cmd_knowledge_facts)
 
-    p = with_policy(sub.add_parser("serve", help="serve the dashboard with Voila (prints the URL)"))
+
+def _add_serve_parser(sub) -> None:
+    p = _with_policy(sub.add_parser("serve", help="serve the dashboard with Voila (prints the URL)"))
     p.add_argument("--port", type=int, default=8866, metavar="N")
     p.add_argument("--cull-idle-seconds", type=int, default=120, metavar="N",
                    help="shut a kernel down once no browser is connected and it has been idle N s (default 120)")
@@ -362,10 +377,6 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--base-url", default="/", metavar="PATH", help="serve under PATH, e.g. behind a reverse proxy")
     p.add_argument("--secure-cookies", action="store_true", help="mark cookies Secure (TLS at a reverse proxy)")
     p.set_defaults(func=cmd_serve)
-
-    add_dose_parser(sub)
-    add_department_parsers(sub, _Parser)  # policy check|diff, review (department overlay, worklists)
-    return parser
 
 
 def main(argv: Sequence[str] | None = None, clock=wall_clock) -> int:
