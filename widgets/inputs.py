@@ -188,6 +188,23 @@ class ExamPicker(w.VBox):
         self._knowledge = knowledge
         self.model = model if model is not None else CaseModel()
         self._all = sorted(knowledge.exams.values(), key=lambda e: (MODALITY_ORDER[e.modality], e.name.lower()))
+        self._build_exam_controls()
+        self._build_time_controls()
+        self._build_request_controls()
+        head = w.HTML('<h3 class="ca-group-head">Exam</h3>')
+        extras = self._build_extras()
+        self.children = [head, self.filter, self.select, self.purpose, self.agent, self.override_culprit,
+                         self.urgency, self.scheduled,
+                         self.scheduled_error, w.HBox([self.as_of, self.as_of_now]), self.as_of_source,
+                         self.as_of_error, self.error, extras]
+        self._observe_controls()
+        self._clock = clock
+        if self._all:
+            default = knowledge.exams.get("ct-abdomen-pelvis") or next((e for e in self._all if e.roles), self._all[0])
+            self.select.value = default.id
+
+    def _build_exam_controls(self) -> None:
+        """The filter box, the exam list, the exam's purpose and the requested agent."""
         self.filter = w.Text(placeholder="filter: name, region, purpose or modality", description="Find exam",
                              style=_DESC, layout=w.Layout(width="100%"))
         self.filter.add_class("ca-exam-filter")
@@ -199,6 +216,9 @@ class ExamPicker(w.VBox):
         self.agent = w.Dropdown(description="Plan with", options=[("top-ranked option", "")], style=_DESC,
                                 layout=w.Layout(width="100%"))
         self.agent.add_class("ca-agent")
+
+    def _build_time_controls(self) -> None:
+        """The exam time and the 'Times as of' field with its 'now' button, each with its error line."""
         self.scheduled = w.Text(placeholder="YYYY-MM-DD HH:MM (optional)", description="Exam time", style=_DESC,
                                 layout=w.Layout(width="100%"))
         self.scheduled_error = _error_label()
@@ -210,6 +230,9 @@ class ExamPicker(w.VBox):
         self.as_of_source = w.HTML("")
         self.as_of_source.add_class("ca-as-of-source")
         self.as_of_error = _error_label()
+
+    def _build_request_controls(self) -> None:
+        """The exam's error line, the urgency and the culprit override."""
         self.error = _error_label()
         self.urgency = w.Dropdown(description="Urgency", options=[(u.value, u.value) for u in m.Urgency],
                                   style=_DESC, layout=w.Layout(width="260px"))
@@ -218,8 +241,10 @@ class ExamPicker(w.VBox):
             description="Override: plan the requested agent even though it caused an earlier reaction",
             indent=False, layout=w.Layout(width="auto"))
         self.override_culprit.add_class("ca-override-culprit")
-        head = w.HTML('<h3 class="ca-group-head">Exam</h3>')
-        # case fields with no dedicated control above (planned flow, volume, strength, and any new one)
+
+    def _build_extras(self) -> w.Accordion:
+        """A generic control for every case field with no dedicated one above (planned flow, volume,
+        strength, and any new one), folded away."""
         own = {"exam", "agent", "scheduled_at", "as_of", "patient", "urgency", "override_culprit"}
         self.extra_specs = [sp for sp in case_specs() if sp.name not in own]
         self.extras: dict[str, w.ValueWidget] = {sp.name: spec_control(sp) for sp in self.extra_specs}
@@ -227,10 +252,9 @@ class ExamPicker(w.VBox):
         extras = w.Accordion(children=[w.VBox([x for n, c in self.extras.items() for x in (c, self.extra_errors[n])])],
                              selected_index=None)
         extras.set_title(0, "Planned injection (optional overrides)")
-        self.children = [head, self.filter, self.select, self.purpose, self.agent, self.override_culprit,
-                         self.urgency, self.scheduled,
-                         self.scheduled_error, w.HBox([self.as_of, self.as_of_now]), self.as_of_source,
-                         self.as_of_error, self.error, extras]
+        return extras
+
+    def _observe_controls(self) -> None:
         for c in self.extras.values():
             c.observe(self._on_agent, "value")
         self.filter.observe(self._on_filter, "value")
@@ -241,10 +265,6 @@ class ExamPicker(w.VBox):
         self.scheduled.observe(self._on_agent, "value")
         self.as_of.observe(self._on_as_of, "value")
         self.as_of_now.on_click(lambda b: self.set_as_of(None))
-        self._clock = clock
-        if self._all:
-            default = knowledge.exams.get("ct-abdomen-pelvis") or next((e for e in self._all if e.roles), self._all[0])
-            self.select.value = default.id
 
     @staticmethod
     def _options(exams: list[m.Exam]) -> list[tuple[str, str]]:
@@ -496,6 +516,10 @@ GROUP_HINTS = {
 }
 
 
+def _group_head(text: str) -> w.HTML:
+    return w.HTML(f'<h3 class="ca-group-head">{text}</h3>')
+
+
 class PatientPanel(w.VBox):
     """Patient factors in groups (``GROUPS`` in knowledge/present/form.py), one control per Patient field.
 
@@ -512,25 +536,16 @@ class PatientPanel(w.VBox):
         self._holding = False
         self.errors: dict[str, w.HTML] = {}
         self.generic: dict[str, w.ValueWidget] = {}
+        self._build_dedicated(knowledge)
+        dedicated = self._dedicated_items()
+        groups = [self._group(group, specs, dedicated) for group, specs in SPECS.items()]
+        self.general_error = _error_label()
+        self.children = groups + [self.general_error]
+        self._observe_controls()
+        self.push()
 
-        def number(name: str) -> w.VBox:
-            sp = _SPEC[name]
-            box = w.Text(description=sp.label, placeholder=sp.hint(), style=_DESC, layout=_WIDE,
-                         continuous_update=True)
-            setattr(self, name, box)
-            err = self.errors[name] = _error_label()
-            return w.VBox([w.HBox([box, w.HTML(f"<span class='ca-hint'>{sp.hint()}</span>")],
-                                  layout=w.Layout(flex_flow="row wrap")), err])
-
-        def flag(name: str) -> w.Checkbox:
-            box = w.Checkbox(description=FLAG_LABEL[name], indent=False, layout=w.Layout(width="auto"))
-            setattr(self, name, box)
-            return box
-
-        def head(text: str) -> w.HTML:
-            return w.HTML(f'<h3 class="ca-group-head">{text}</h3>')
-
-        # dedicated controls
+    def _build_dedicated(self, knowledge: Knowledge) -> None:
+        """The controls of the fields with a control of their own (DEDICATED) and the eGFR readout."""
         self.creatinine_value = w.Text(description="Creatinine", placeholder="serum creatinine", style=_DESC,
                                        layout=w.Layout(width="180px"))
         self.creatinine_unit = _sr(w.Dropdown(description="Creatinine unit",
@@ -555,7 +570,10 @@ class PatientPanel(w.VBox):
                                       options=[("site", "")] + [(s.replace("_", " "), s) for s in IV_SITES],
                                       layout=w.Layout(width="190px")))
         self.errors["iv_access"] = _error_label()
-        dedicated = {
+
+    def _dedicated_items(self) -> dict[str, Any]:
+        """Field name -> a function that lays out its dedicated controls (called once, in its group)."""
+        return {
             "sex": lambda: [w.VBox([self.sex, self.errors["sex"]])],
             "creatinine": lambda: [w.HBox([self.creatinine_value, self.creatinine_unit, self.creatinine_hint],
                                           layout=w.Layout(flex_flow="row wrap")),
@@ -566,29 +584,45 @@ class PatientPanel(w.VBox):
             "iv_access": lambda: [w.HBox([self.iv_gauge, self.iv_site], layout=w.Layout(flex_flow="row wrap")),
                                   self.errors["iv_access"]],
         }
-        groups = []
-        for group, specs in SPECS.items():
-            items: list[w.Widget] = [head(GROUP_TITLES[group])]
-            for sp in specs:
-                if sp.name in dedicated:
-                    items += dedicated[sp.name]()
-                elif sp.kind == "bool":
-                    items.append(flag(sp.name))
-                elif sp.kind in ("number", "integer"):
-                    items.append(number(sp.name))
-                else:  # a new choice or list field: a generic control
-                    ctl = self.generic[sp.name] = spec_control(sp)
-                    setattr(self, sp.name, ctl)
-                    self.errors[sp.name] = _error_label()
-                    items += [ctl, self.errors[sp.name]]
-                if sp.name in GROUP_HINTS:
-                    items.append(w.HTML(f"<span class='ca-hint'>{GROUP_HINTS[sp.name]}</span>"))
-            if group == "kidney":
-                items.append(self.egfr_readout)
-            groups.append(w.VBox(items))
-        self.general_error = _error_label()
-        self.children = groups + [self.general_error]
 
+    def _group(self, group: str, specs: list[FieldSpec], dedicated: dict[str, Any]) -> w.VBox:
+        """One group of the form: its heading, a control per field (with its hint), the eGFR readout in
+        the kidney group."""
+        items: list[w.Widget] = [_group_head(GROUP_TITLES[group])]
+        for sp in specs:
+            if sp.name in dedicated:
+                items += dedicated[sp.name]()
+            elif sp.kind == "bool":
+                items.append(self._flag(sp.name))
+            elif sp.kind in ("number", "integer"):
+                items.append(self._number(sp.name))
+            else:  # a new choice or list field: a generic control
+                ctl = self.generic[sp.name] = spec_control(sp)
+                setattr(self, sp.name, ctl)
+                self.errors[sp.name] = _error_label()
+                items += [ctl, self.errors[sp.name]]
+            if sp.name in GROUP_HINTS:
+                items.append(w.HTML(f"<span class='ca-hint'>{GROUP_HINTS[sp.name]}</span>"))
+        if group == "kidney":
+            items.append(self.egfr_readout)
+        return w.VBox(items)
+
+    def _number(self, name: str) -> w.VBox:
+        """A text box for a number (attribute ``name``), its unit and range beside it, and its error line."""
+        sp = _SPEC[name]
+        box = w.Text(description=sp.label, placeholder=sp.hint(), style=_DESC, layout=_WIDE,
+                     continuous_update=True)
+        setattr(self, name, box)
+        err = self.errors[name] = _error_label()
+        return w.VBox([w.HBox([box, w.HTML(f"<span class='ca-hint'>{sp.hint()}</span>")],
+                              layout=w.Layout(flex_flow="row wrap")), err])
+
+    def _flag(self, name: str) -> w.Checkbox:
+        box = w.Checkbox(description=FLAG_LABEL[name], indent=False, layout=w.Layout(width="auto"))
+        setattr(self, name, box)
+        return box
+
+    def _observe_controls(self) -> None:
         self._controls = ([getattr(self, n) for n in NUMBERS]
                           + [getattr(self, n) for g in GROUP_FLAGS.values() for n in g]
                           + [self.creatinine_value, self.creatinine_unit, self.creatinine_date, self.sex,
@@ -598,7 +632,6 @@ class PatientPanel(w.VBox):
             c.observe(self._on_change, "value")
         self.creatinine_unit.observe(self._on_unit, "value")
         self.reactions.observe(self._on_change, "rows_data")
-        self.push()
 
     # ---- events
     def _on_change(self, change: dict) -> None:
@@ -676,23 +709,9 @@ class PatientPanel(w.VBox):
             for name in NUMBERS:
                 if name in p:
                     getattr(self, name).value = str(p[name])
-            cr = p.get("creatinine")
-            if isinstance(cr, dict):
-                self.creatinine_value.value = str(cr.get("value", ""))
-                self._choose(self.creatinine_unit, str(cr.get("unit", "mg/dL")), "patient.creatinine.unit", notes)
-                if cr.get("measured_on"):
-                    try:
-                        self.creatinine_date.value = dt.date.fromisoformat(str(cr["measured_on"])[:10])
-                    except ValueError:
-                        notes.append(f"patient.creatinine.measured_on: {cr['measured_on']!r} from the link is not "
-                                     "a date; allowed: YYYY-MM-DD")
-            for group in GROUP_FLAGS.values():
-                for name in group:
-                    if name in p:
-                        if isinstance(p[name], bool):
-                            getattr(self, name).value = p[name]
-                        else:
-                            notes.append(f"patient.{name}: {p[name]!r} from the link is not allowed; allowed: 1 or 0")
+            if isinstance(p.get("creatinine"), dict):
+                self._set_creatinine(p["creatinine"], notes)
+            self._set_flags(p, notes)
             for name in ("sex", "dialysis", "obstruction"):
                 if name in p:
                     self._choose(getattr(self, name), str(p[name]), f"patient.{name}", notes)
@@ -700,16 +719,7 @@ class PatientPanel(w.VBox):
             if isinstance(iv, dict):
                 self._choose(self.iv_gauge, str(iv.get("gauge", "")), "patient.iv_access.gauge", notes)
                 self._choose(self.iv_site, str(iv.get("site", "")), "patient.iv_access.site", notes)
-            self.reactions.clear()
-            for r in p.get("prior_reactions") or []:
-                row = self.reactions.add_row(notify=False)
-                for attr, key in (("family", "agent_family"), ("kind", "kind"), ("severity", "severity")):
-                    if key in r:
-                        self._choose(getattr(row, attr), str(r[key]), f"patient.prior_reactions.{key}", notes)
-                if r.get("agent"):
-                    self._choose(row.agent, str(r["agent"]), "patient.prior_reactions.agent", notes)
-                if r.get("despite_premedication") is True:
-                    row.breakthrough.value = True
+            self._set_reactions(p.get("prior_reactions") or [], notes)
             for name, ctl in self.generic.items():
                 if name in p:
                     _set_control(_SPEC[name], ctl, p[name], notes)
@@ -718,6 +728,38 @@ class PatientPanel(w.VBox):
         self.reactions.rows_data = self.reactions.data()
         self.push()
         return notes
+
+    def _set_creatinine(self, cr: dict[str, Any], notes: list[str]) -> None:
+        self.creatinine_value.value = str(cr.get("value", ""))
+        self._choose(self.creatinine_unit, str(cr.get("unit", "mg/dL")), "patient.creatinine.unit", notes)
+        if cr.get("measured_on"):
+            try:
+                self.creatinine_date.value = dt.date.fromisoformat(str(cr["measured_on"])[:10])
+            except ValueError:
+                notes.append(f"patient.creatinine.measured_on: {cr['measured_on']!r} from the link is not "
+                             "a date; allowed: YYYY-MM-DD")
+
+    def _set_flags(self, p: dict[str, Any], notes: list[str]) -> None:
+        for group in GROUP_FLAGS.values():
+            for name in group:
+                if name in p:
+                    if isinstance(p[name], bool):
+                        getattr(self, name).value = p[name]
+                    else:
+                        notes.append(f"patient.{name}: {p[name]!r} from the link is not allowed; allowed: 1 or 0")
+
+    def _set_reactions(self, reactions: list[dict[str, Any]], notes: list[str]) -> None:
+        """One reaction row per prior reaction (the rows there before are removed)."""
+        self.reactions.clear()
+        for r in reactions:
+            row = self.reactions.add_row(notify=False)
+            for attr, key in (("family", "agent_family"), ("kind", "kind"), ("severity", "severity")):
+                if key in r:
+                    self._choose(getattr(row, attr), str(r[key]), f"patient.prior_reactions.{key}", notes)
+            if r.get("agent"):
+                self._choose(row.agent, str(r["agent"]), "patient.prior_reactions.agent", notes)
+            if r.get("despite_premedication") is True:
+                row.breakthrough.value = True
 
     @staticmethod
     def _choose(box: w.Dropdown, value: str, field: str, notes: list[str]) -> None:
