@@ -74,62 +74,13 @@ class ContrastAidApp(w.VBox):
         self._plot_keys: dict[str, Any] = {}
         self._whatif_key: Any = None
         self._whatif_fig: dict | None = None
-
-        k = self.knowledge
-        self.caution = w.HTML(f"<div>{html.escape(CAUTION)}</div>")
-        self.caution.add_class("ca-caution")
-        title = w.HTML(
-            "<h1 class='ca-title'>contrast-aid · choosing a contrast agent</h1>"
-            f"<div class='ca-hint'>Knowledge {k.version} · policy {html.escape(k.policy.name)} · "
-            "no patient identifiers are asked for or kept</div>")
-        title.add_class("ca-header")
-        self.model = CaseModel()  # the case as typed; the controls write it, recompute observes it
-        self.exam = ExamPicker(k, clock, self.model)
-        self.exam.set_as_of(None)
-        self.patient = PatientPanel(k, self.model)
-        self._batch = False
-        self.panel = DecisionPanel(k)
-        self.summary = SummaryPanel()
-        self._last_decision: m.Decision | None = None
-        self.egfr_out = plots.plot_output()
-        self.whatif_out = plots.plot_output()
-        self.timeline_out = plots.plot_output()
-        self.dose_out = plots.plot_output()
-        self.egfr_fig = plots.egfr_figure(k)
-        def plot_box(title: str, out: w.Output) -> w.VBox:
-            return w.VBox([w.HTML(f'<h3 class="ca-group-head">{title}</h3>'), out],
-                          layout=w.Layout(display="none"))
-
-        self.plot_boxes = {
-            "egfr": plot_box("Where this eGFR sits (KDIGO bands, policy thresholds)", self.egfr_out),
-            "whatif": plot_box("What if kidney function were different?", self.whatif_out),
-            "timeline": plot_box("Timed actions", self.timeline_out),
-            "dose": plot_box("Dose plan", self.dose_out)}
-        self.plots_box = w.VBox([w.HTML('<h2 class="ca-section-head">Plots</h2>'), *self.plot_boxes.values()])
-        self.plots_box.add_class("ca-plots")
+        title = self._build_header()
+        self._build_case_and_decision(clock)
+        self._build_plots()
         self.note = ProtocolNote()
-        self._browser: KnowledgeBrowser | None = None
-        self._browser_slot = w.VBox([w.HTML("<div class='ca-hint'>Opening the tables…</div>")])
-        browser_box = w.Accordion(children=[self._browser_slot], selected_index=None)
-        browser_box.set_title(0, "Knowledge tables and policy in force")
-        browser_box.observe(self._on_browser_open, "selected_index")
-
-        self.link_text = w.Text(description="Open a case link", placeholder="paste a shared link (or its ?query)",
-                                style={"description_width": "initial"}, layout=w.Layout(width="100%"))
-        self.link_text.add_class("ca-open-link")
-        self.link_button = w.Button(description="open", tooltip="fill the form from the pasted link",
-                                    layout=w.Layout(width="70px"))
-        self.link_button.on_click(lambda b: self.open_link(self.link_text.value))
-        left = w.VBox([w.HTML('<h2 class="ca-section-head">The case</h2>'), self.exam, self.patient,
-                       w.HTML('<h3 class="ca-group-head">Shared link</h3>'),
-                       w.HBox([self.link_text, self.link_button], layout=w.Layout(width="100%"))])
-        left.add_class("ca-inputs")
-        right = w.VBox([self.panel, self.plots_box, self.note])
-        right.add_class("ca-details")
-        main = w.Box([self.summary, left, right])
-        main.add_class("ca-main")
-        browser_box.add_class("ca-browser-box")
-        self.children = [w.HTML(CSS), title, self.caution, main, browser_box]
+        browser_box = self._build_browser()
+        self._build_link_opener()
+        self.children = [w.HTML(CSS), title, self.caution, self._main_box(), browser_box]
         worklist_box = worklist_section(self)  # the worklist tab (widgets/worklist.py)
         worklist_box.add_class("ca-worklist-box")  # not printed
         self.children += (worklist_box,)
@@ -141,6 +92,80 @@ class ContrastAidApp(w.VBox):
         self._say_changes = True  # from now on, each input change says what changed in the plan
         if defer_plots:
             self._draw_plots_when_connected()
+
+    def _build_header(self) -> w.HTML:
+        """The caution line (``self.caution``); returns the title with the knowledge and policy versions."""
+        k = self.knowledge
+        self.caution = w.HTML(f"<div>{html.escape(CAUTION)}</div>")
+        self.caution.add_class("ca-caution")
+        title = w.HTML(
+            "<h1 class='ca-title'>contrast-aid · choosing a contrast agent</h1>"
+            f"<div class='ca-hint'>Knowledge {k.version} · policy {html.escape(k.policy.name)} · "
+            "no patient identifiers are asked for or kept</div>")
+        title.add_class("ca-header")
+        return title
+
+    def _build_case_and_decision(self, clock) -> None:
+        """The case model, the exam picker and patient panel that write it, the decision and summary panels."""
+        k = self.knowledge
+        self.model = CaseModel()  # the case as typed; the controls write it, recompute observes it
+        self.exam = ExamPicker(k, clock, self.model)
+        self.exam.set_as_of(None)
+        self.patient = PatientPanel(k, self.model)
+        self._batch = False
+        self.panel = DecisionPanel(k)
+        self.summary = SummaryPanel()
+        self._last_decision: m.Decision | None = None
+
+    def _build_plots(self) -> None:
+        """One output per plot, each in a box hidden until its plot applies, under a "Plots" heading."""
+        self.egfr_out = plots.plot_output()
+        self.whatif_out = plots.plot_output()
+        self.timeline_out = plots.plot_output()
+        self.dose_out = plots.plot_output()
+        self.egfr_fig = plots.egfr_figure(self.knowledge)
+
+        def plot_box(title: str, out: w.Output) -> w.VBox:
+            return w.VBox([w.HTML(f'<h3 class="ca-group-head">{title}</h3>'), out],
+                          layout=w.Layout(display="none"))
+
+        self.plot_boxes = {
+            "egfr": plot_box("Where this eGFR sits (KDIGO bands, policy thresholds)", self.egfr_out),
+            "whatif": plot_box("What if kidney function were different?", self.whatif_out),
+            "timeline": plot_box("Timed actions", self.timeline_out),
+            "dose": plot_box("Dose plan", self.dose_out)}
+        self.plots_box = w.VBox([w.HTML('<h2 class="ca-section-head">Plots</h2>'), *self.plot_boxes.values()])
+        self.plots_box.add_class("ca-plots")
+
+    def _build_browser(self) -> w.Accordion:
+        """The folded knowledge browser; its tables are built the first time it is opened."""
+        self._browser: KnowledgeBrowser | None = None
+        self._browser_slot = w.VBox([w.HTML("<div class='ca-hint'>Opening the tables…</div>")])
+        browser_box = w.Accordion(children=[self._browser_slot], selected_index=None)
+        browser_box.set_title(0, "Knowledge tables and policy in force")
+        browser_box.observe(self._on_browser_open, "selected_index")
+        browser_box.add_class("ca-browser-box")
+        return browser_box
+
+    def _build_link_opener(self) -> None:
+        self.link_text = w.Text(description="Open a case link", placeholder="paste a shared link (or its ?query)",
+                                style={"description_width": "initial"}, layout=w.Layout(width="100%"))
+        self.link_text.add_class("ca-open-link")
+        self.link_button = w.Button(description="open", tooltip="fill the form from the pasted link",
+                                    layout=w.Layout(width="70px"))
+        self.link_button.on_click(lambda b: self.open_link(self.link_text.value))
+
+    def _main_box(self) -> w.Box:
+        """The page's grid: the summary, the case form (with the link opener) and the details."""
+        left = w.VBox([w.HTML('<h2 class="ca-section-head">The case</h2>'), self.exam, self.patient,
+                       w.HTML('<h3 class="ca-group-head">Shared link</h3>'),
+                       w.HBox([self.link_text, self.link_button], layout=w.Layout(width="100%"))])
+        left.add_class("ca-inputs")
+        right = w.VBox([self.panel, self.plots_box, self.note])
+        right.add_class("ca-details")
+        main = w.Box([self.summary, left, right])
+        main.add_class("ca-main")
+        return main
 
     @classmethod
     def from_environment(cls, clock=wall_clock) -> "ContrastAidApp":
@@ -256,21 +281,35 @@ class ContrastAidApp(w.VBox):
     # ---- compute and show
     def recompute(self) -> m.Decision | None:
         data = typed_case(self.case_data())
-        problems = case_problems(data) or self._unit_problems(data)
-        case = decision = None
-        if not problems:
-            try:
-                case = parse_form_case(data)
-                decision = decide(case, self.knowledge)
-                self._update_whatif(case)
-            except ContrastAidError as exc:
-                problems = [(exc.field or "", exc.message)]
-            except Exception as exc:  # never leave the last plan on screen as if it were current
-                _log.error("recompute failed: %s (case values not logged)", type(exc).__name__)
-                case = decision = None
-                problems = [("", "Not updated: the plan could not be worked out for these inputs "
-                                 f"(internal error {type(exc).__name__}); the plan shown is not current")]
+        case, decision, problems = self._decide(data)
         problems = [(f, self._in_form_words(f, msg, data)) for f, msg in problems]
+        self._place_problems(problems)
+        if decision is None:
+            self._show_stale([msg for _, msg in problems])
+            return None
+        self._show_decision(case, decision)
+        return decision
+
+    def _decide(self, data: dict) -> tuple[m.Case | None, m.Decision | None, list[tuple[str, str]]]:
+        """Validate the typed case, decide, and update the what-if sweep: (case, decision, problems)."""
+        problems = case_problems(data) or self._unit_problems(data)
+        if problems:
+            return None, None, problems
+        case = decision = None
+        try:
+            case = parse_form_case(data)
+            decision = decide(case, self.knowledge)
+            self._update_whatif(case)
+        except ContrastAidError as exc:
+            return case, decision, [(exc.field or "", exc.message)]
+        except Exception as exc:  # never leave the last plan on screen as if it were current
+            _log.error("recompute failed: %s (case values not logged)", type(exc).__name__)
+            return None, None, [("", "Not updated: the plan could not be worked out for these inputs "
+                                     f"(internal error {type(exc).__name__}); the plan shown is not current")]
+        return case, decision, []
+
+    def _place_problems(self, problems: list[tuple[str, str]]) -> None:
+        """Each message beside its field (the link's notes too), and all of them in ``errors``."""
         by_field: dict[str, list[str]] = {}
         for field, message in problems:
             by_field.setdefault(_field_key(field), []).append(message)
@@ -279,16 +318,20 @@ class ContrastAidApp(w.VBox):
         self.exam.show_problems(by_field)
         self.patient.show_problems(by_field)
         self.errors = [msg for _, msg in problems] + list(self.link_notes)
-        if decision is None:
-            self.decision = None
-            self.stale = True
-            self.panel.set_stale(True, [msg for _, msg in problems])
-            self.plots_box.add_class("ca-stale")
-            self.note.clear("the inputs have problems (see the marked fields)")
-            self.summary.show_stale([msg for _, msg in problems] + list(self.link_notes))
-            self._show_applicable_plots(None)
-            self.patient.set_egfr_readout("<span class='ca-hint'>eGFR: waiting for valid inputs</span>")
-            return None
+
+    def _show_stale(self, messages: list[str]) -> None:
+        """No current plan: every panel greyed or cleared, saying why."""
+        self.decision = None
+        self.stale = True
+        self.panel.set_stale(True, messages)
+        self.plots_box.add_class("ca-stale")
+        self.note.clear("the inputs have problems (see the marked fields)")
+        self.summary.show_stale(messages + list(self.link_notes))
+        self._show_applicable_plots(None)
+        self.patient.set_egfr_readout("<span class='ca-hint'>eGFR: waiting for valid inputs</span>")
+
+    def _show_decision(self, case: m.Case, decision: m.Decision) -> None:
+        """The decision in every panel: cards, eGFR, plots, note, summary and what changed since the last one."""
         self.case = case
         self.decision = decision
         self.stale = False
@@ -305,7 +348,6 @@ class ContrastAidApp(w.VBox):
         compare = getattr(self, "_say_changes", False)
         self.summary.show_changes(decision_changes(self._last_decision, decision) if compare else None)
         self._last_decision = decision
-        return decision
 
     @staticmethod
     def _unit_problems(data: dict) -> list[tuple[str, str]]:

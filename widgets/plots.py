@@ -228,34 +228,12 @@ def dose_figure(decision: m.Decision, knowledge: Knowledge) -> tuple[dict | None
     iodine = getattr(dose, "iodine_g", None)
     agent = knowledge.agents.get(getattr(dose, "agent", None) or "")
     if dose is None or agent is None or not isinstance(iodine, (int, float)):
-        if prot is None:
-            return None, "No intravascular dose protocol for this exam."
-        why = " ".join(getattr(dose, "warnings", []) or []) if dose is not None else ""
-        return None, (f"Dose plan: not worked out ({why or 'enter the weight for a weight-based dose'}). Exam protocol: "
-                      f"{prot.iodine_g_per_kg or '-'} g I/kg, at most {prot.max_volume_ml:g} mL, {prot.flow_ml_s:g} mL/s.")
+        return None, _dose_not_worked_out(dose, prot)
     pairs = volumes_by_strength(float(iodine), agent)
-    chosen_c = getattr(dose, "concentration_mg_i_ml", None)
     cap = prot.max_volume_ml if prot else None
-    data = [dict(
-        type="bar", x=[f"{c:g} mg I/mL" for c, _ in pairs], y=[v for _, v in pairs],
-        marker=dict(color=["#0072B2" if c == chosen_c else "#98b6d8" for c, _ in pairs],
-                    pattern=dict(shape=["" if c == chosen_c else "." for c, _ in pairs], fillmode="overlay",
-                                 fgcolor="#ffffff", fgopacity=0.6)),
-        text=[f"{v:.0f} mL" + (" (planned)" if c == chosen_c else "") for c, v in pairs],
-        textposition="outside", cliponaxis=False, hoverinfo="text",
-        hovertext=[f"{c:g} mg I/mL: {v:.0f} mL for {iodine:.1f} g I" for c, v in pairs])]
-    shapes, notes = [], []
-    if cap is not None:
-        shapes.append(dict(type="line", xref="paper", yref="y", x0=0, x1=1, y0=cap, y1=cap,
-                           line=dict(color="#5b2a86", dash="dash", width=2)))
-        notes.append(dict(xref="paper", x=1, y=cap, yref="y", text=f"exam cap {cap:g} mL", showarrow=False,
-                          xanchor="right", yanchor="bottom", font=dict(size=10, color="#5b2a86")))
-    flow = getattr(dose, "flow_ml_s", None)
-    idr = getattr(dose, "iodine_delivery_rate_g_s", None)
-    title = (f"{agent.name}: {iodine:.1f} g I"
-             + (f", {dose.volume_ml:.0f} mL" if isinstance(dose.volume_ml, (int, float)) else "")
-             + (f" at {flow:g} mL/s" if isinstance(flow, (int, float)) else "")
-             + (f" = {idr:.2f} g I/s" if isinstance(idr, (int, float)) else ""))
+    data = [_strength_bars(pairs, getattr(dose, "concentration_mg_i_ml", None), iodine)]
+    shapes, notes = _cap_line(cap)
+    title = _dose_title(agent, iodine, dose)
     top = max([v for _, v in pairs] + [cap or 0]) * 1.25
     layout = _base_layout(248)
     layout.update(title=dict(text=title, font=dict(size=12)), shapes=shapes, annotations=notes,
@@ -263,6 +241,47 @@ def dose_figure(decision: m.Decision, knowledge: Knowledge) -> tuple[dict | None
                   xaxis=dict(title=dict(text="strengths of the agent")))
     fig = dict(data=data, layout=layout)
     return fig, title + ". Volume by strength: " + ", ".join(f"{c:g} mg I/mL → {v:.0f} mL" for c, v in pairs)
+
+
+def _dose_not_worked_out(dose: Any, prot: Any) -> str:
+    """Words for a dose plan with no iodine dose to draw: why, and the exam protocol."""
+    if prot is None:
+        return "No intravascular dose protocol for this exam."
+    why = " ".join(getattr(dose, "warnings", []) or []) if dose is not None else ""
+    return (f"Dose plan: not worked out ({why or 'enter the weight for a weight-based dose'}). Exam protocol: "
+            f"{prot.iodine_g_per_kg or '-'} g I/kg, at most {prot.max_volume_ml:g} mL, {prot.flow_ml_s:g} mL/s.")
+
+
+def _strength_bars(pairs: list[tuple[float, float]], chosen_c: Any, iodine: float) -> dict:
+    """One bar per strength: the volume that gives this iodine dose; the planned strength solid, the others
+    dotted (never colour alone)."""
+    return dict(
+        type="bar", x=[f"{c:g} mg I/mL" for c, _ in pairs], y=[v for _, v in pairs],
+        marker=dict(color=["#0072B2" if c == chosen_c else "#98b6d8" for c, _ in pairs],
+                    pattern=dict(shape=["" if c == chosen_c else "." for c, _ in pairs], fillmode="overlay",
+                                 fgcolor="#ffffff", fgopacity=0.6)),
+        text=[f"{v:.0f} mL" + (" (planned)" if c == chosen_c else "") for c, v in pairs],
+        textposition="outside", cliponaxis=False, hoverinfo="text",
+        hovertext=[f"{c:g} mg I/mL: {v:.0f} mL for {iodine:.1f} g I" for c, v in pairs])
+
+
+def _cap_line(cap: float | None) -> tuple[list[dict], list[dict]]:
+    """The exam's volume cap as a dashed line and its label (none without a cap)."""
+    if cap is None:
+        return [], []
+    return ([dict(type="line", xref="paper", yref="y", x0=0, x1=1, y0=cap, y1=cap,
+                  line=dict(color="#5b2a86", dash="dash", width=2))],
+            [dict(xref="paper", x=1, y=cap, yref="y", text=f"exam cap {cap:g} mL", showarrow=False,
+                  xanchor="right", yanchor="bottom", font=dict(size=10, color="#5b2a86"))])
+
+
+def _dose_title(agent: Any, iodine: float, dose: Any) -> str:
+    flow = getattr(dose, "flow_ml_s", None)
+    idr = getattr(dose, "iodine_delivery_rate_g_s", None)
+    return (f"{agent.name}: {iodine:.1f} g I"
+            + (f", {dose.volume_ml:.0f} mL" if isinstance(dose.volume_ml, (int, float)) else "")
+            + (f" at {flow:g} mL/s" if isinstance(flow, (int, float)) else "")
+            + (f" = {idr:.2f} g I/s" if isinstance(idr, (int, float)) else ""))
 
 
 # ---- gadolinium and microbubble doses (issue 13) -------------------------------------------------

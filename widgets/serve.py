@@ -223,14 +223,10 @@ def serve(port: int, policy: str | None, open_browser: bool = False, *, cull_idl
     2: the policy file does not load, the port is not usable or an option is out of range; 1: Voila failed
     to start or stopped with an error; 0: stopped by the user (Ctrl-C) or Voila exited cleanly.
     """
-    if not (0 < int(port) < 65536):
-        print(f"port: {port} is not a TCP port; allowed 1-65535", file=sys.stderr)
+    problem = _option_problem(port, cull_idle_seconds, cull_interval_seconds)
+    if problem:
+        print(problem, file=sys.stderr)
         return 2
-    for name, value, low in (("cull-idle-seconds", cull_idle_seconds, 10),
-                             ("cull-interval-seconds", cull_interval_seconds, 1)):
-        if not (low <= int(value) <= 86_400):
-            print(f"{name}: {value} is out of range; allowed {low}-86400 seconds", file=sys.stderr)
-            return 2
     try:
         base_url = normal_base_url(base_url)
     except ValueError as exc:
@@ -251,6 +247,23 @@ def serve(port: int, policy: str | None, open_browser: bool = False, *, cull_idl
     except RuntimeError as exc:
         print(str(exc), file=sys.stderr)
         return 1
+    return _run_voila(cmd, policy, port, base_url, open_browser)
+
+
+def _option_problem(port: int, cull_idle_seconds: int, cull_interval_seconds: int) -> str | None:
+    """The message for a port or cull time out of range, or None."""
+    if not (0 < int(port) < 65536):
+        return f"port: {port} is not a TCP port; allowed 1-65535"
+    for name, value, low in (("cull-idle-seconds", cull_idle_seconds, 10),
+                             ("cull-interval-seconds", cull_interval_seconds, 1)):
+        if not (low <= int(value) <= 86_400):
+            return f"{name}: {value} is out of range; allowed {low}-86400 seconds"
+    return None
+
+
+def _run_voila(cmd: list[str], policy: str | None, port: int, base_url: str, open_browser: bool) -> int:
+    """Start Voila, print the URL once it answers, and wait for it; Voila (and its kernels) is stopped on
+    the way out, whatever the way (Ctrl-C, SIGTERM, a failed start)."""
     proc = subprocess.Popen(cmd, env=voila_environment(policy))
     previous = _stop_on_sigterm()
     try:

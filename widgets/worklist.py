@@ -52,9 +52,22 @@ class WorklistTab(w.VBox):
         self._open_case = open_case
         self._builder = CaseBuilder()
         self._name = "worklist.csv"
+        self._build_file_controls()
+        self._build_view_controls()
+        self._observe_controls()
+        hint = w.HTML(
+            f"<div class='ca-hint'>One order a row: <code>order_id</code>, <code>exam</code> (exam id or local code), "
+            "the case fields (see examples/worklist.csv). CSV, XLSX or Parquet, up to "
+            f"{MAX_UPLOAD_BYTES // (1024 * 1024)} MB; longer lists: <code>contrast-aid review</code>. Times are "
+            "worked out as of the main view's “Times as of”.</div>")
+        self.children = [hint, w.HBox([self.upload, self.progress]), self.message, self.before, self.summary,
+                         w.HBox([self.status, self.filter]), w.HBox([self.sort, self.descending]),
+                         self.table, w.HBox([self.pick, self.open_button]), self.download]
+
+    def _build_file_controls(self) -> None:
+        """The upload, its progress bar, the message line, the summary and the 'Action before' time."""
         self.upload = w.FileUpload(accept=",".join(FORMATS), multiple=False, description="Upload a list")
         self.upload.add_class("ca-worklist-upload")
-        self.upload.observe(self._on_upload, "value")
         self.progress = w.IntProgress(value=0, min=0, max=1, description="Reviewing",
                                       layout=w.Layout(visibility="hidden"))
         self.progress.add_class("ca-worklist-progress")
@@ -65,8 +78,10 @@ class WorklistTab(w.VBox):
         self.before = w.Text(placeholder="YYYY-MM-DD HH:MM (default: 24 h after 'as of')",
                              description="Action before")
         self.before.add_class("ca-worklist-before")
-        self.before.observe(self._on_before, "value")
         self._reviewed_as_of: dt.datetime | None = None
+
+    def _build_view_controls(self) -> None:
+        """Status, filter and sort of the table, the table, the order picker and the download link."""
         self.status = w.Dropdown(options=STATUS_CHOICES, value="attention", description="Show")
         self.status.add_class("ca-worklist-status")
         self.filter = w.Text(placeholder="filter: order, exam, agent, flag…", description="Find")
@@ -83,18 +98,14 @@ class WorklistTab(w.VBox):
         self.pick.add_class("ca-worklist-open")
         self.download = w.HTML("")
         self.download.add_class("ca-worklist-download")
+
+    def _observe_controls(self) -> None:
+        self.upload.observe(self._on_upload, "value")
+        self.before.observe(self._on_before, "value")
         for control in (self.status, self.sort, self.descending):
             control.observe(self._on_view, "value")
         self.filter.observe(self._on_view, "value")
         self.open_button.on_click(self._on_open)
-        hint = w.HTML(
-            f"<div class='ca-hint'>One order a row: <code>order_id</code>, <code>exam</code> (exam id or local code), "
-            "the case fields (see examples/worklist.csv). CSV, XLSX or Parquet, up to "
-            f"{MAX_UPLOAD_BYTES // (1024 * 1024)} MB; longer lists: <code>contrast-aid review</code>. Times are "
-            "worked out as of the main view's “Times as of”.</div>")
-        self.children = [hint, w.HBox([self.upload, self.progress]), self.message, self.before, self.summary,
-                         w.HBox([self.status, self.filter]), w.HBox([self.sort, self.descending]),
-                         self.table, w.HBox([self.pick, self.open_button]), self.download]
 
     # ---- input
     def _on_upload(self, change: dict) -> None:
