@@ -231,3 +231,12 @@ def test_policy_out_of_range_setting(tmp_path):
     with pytest.raises(KnowledgeError) as exc:
         load_policy(path)
     assert str(exc.value) == "p.yaml: policy.egfr_hydration_below: 300 is out of range; allowed: at most 120"
+
+
+def test_every_operator_of_the_condition_format_has_a_compiler():
+    # the condition compiler is one table (conditions.OPERATORS); an operator the model accepts but the
+    # table lacks would only fail when a rule first used it
+    from knowledge.tables.conditions import OPERATORS
+
+    accepted = {f.alias or name for name, f in m.Test.model_fields.items() if name != "fact"}
+    assert set(OPERATORS) == accepted == {"is", "is_not", "in", "not_in", "lt", "le", "gt", "ge", "has", "known"}

@@ -5,6 +5,10 @@ module level and inside functions alike, so a function-level import cannot hide 
 a module of the project, and checked: no module imports from a higher layer, nothing inside the core
 imports the ``knowledge`` package's own facade, and no two modules import each other, directly or
 around a circle.
+
+Every function of ``knowledge/`` and ``widgets/`` (methods and nested functions too) is a short, named
+stage: at most ``MAX_FUNCTION_LINES`` lines, ``decide`` at most ``MAX_DECIDE_LINES``. ``python
+tests/test_layers.py`` lists the functions over the limit.
 """
 
 from __future__ import annotations
@@ -146,15 +150,94 @@ def test_the_walker_sees_a_function_level_import(tmp_path):
     assert imports_of("knowledge.tables.probe", probe, set(modules())) == {"knowledge.decision.engine"}
 
 
-def test_the_decision_is_short_named_stages():
-    # decide() is a pipeline of named stages (DEVELOPERS.md, "How data flows"); no stage of the decision
-    # layer grows past about 45 lines, so each can be read and tested on its own
-    long = []
-    for path in sorted((ROOT / "knowledge" / "decision").glob("*.py")):
-        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
-            if isinstance(node, ast.FunctionDef) and node.end_lineno - node.lineno + 1 > 45:
-                long.append(f"{path.name}:{node.name} ({node.end_lineno - node.lineno + 1} lines)")
-    assert long == []
-    decide = next(n for n in ast.walk(ast.parse((ROOT / "knowledge/decision/engine.py").read_text(encoding="utf-8")))
-                  if isinstance(n, ast.FunctionDef) and n.name == "decide")
-    assert decide.end_lineno - decide.lineno + 1 <= 30
+# ----------------------------------------------------------------------------- short, named stages
+#: every function of knowledge/ and widgets/ (methods and nested functions included, docstring counted) is
+#: a short, named stage that can be read and tested on its own (DEVELOPERS.md, "Architecture")
+MAX_FUNCTION_LINES = 45
+#: decide() is a pipeline of named stages (DEVELOPERS.md, "How data flows"): it stays shorter still
+MAX_DECIDE_LINES = 30
+#: "path:qualified name" of functions allowed to be longer for now, with the reason; an entry that is no
+#: longer needed fails test_every_length_exemption_is_still_needed, so it is removed with the fix
+LENGTH_EXEMPT = {
+    "knowledge/review/worklist.py:summarise_decision": "the worklist review is being rewritten (issue 7)",
+    "knowledge/review/worklist.py:review_rows": "the worklist review is being rewritten (issue 7)",
+}
+
+
+def function_lengths(path: Path) -> list[tuple[str, int]]:
+    """("path:Qualified.name", lines) of every function in a file: module functions, methods, nested
+    functions and those under an ``if`` or ``try`` (from ``def`` to its last line, decorators left out).
+    The path is relative to the project (a file outside it: its name)."""
+    rel = path.relative_to(ROOT).as_posix() if path.is_relative_to(ROOT) else path.name
+    out: list[tuple[str, int]] = []
+
+    def walk(node: ast.AST, prefix: str) -> None:
+        for child in ast.iter_child_nodes(node):
+            if isinstance(child, (ast.FunctionDef, ast.AsyncFunctionDef)):
+                out.append((f"{rel}:{prefix}{child.name}", child.end_lineno - child.lineno + 1))
+                walk(child, f"{prefix}{child.name}.")
+            elif isinstance(child, ast.ClassDef):
+                walk(child, f"{prefix}{child.name}.")
+            else:
+                walk(child, prefix)
+
+    walk(ast.parse(path.read_text(encoding="utf-8")), "")
+    return out
+
+
+def long_functions(paths: list[Path] | None = None, limit: int = MAX_FUNCTION_LINES) -> list[tuple[str, int]]:
+    """Every function over ``limit`` lines in ``paths`` (default: every module of knowledge/ and widgets/),
+    longest first."""
+    paths = paths if paths is not None else list(modules().values())
+    found = [(name, n) for path in paths for name, n in function_lengths(path) if n > limit]
+    return sorted(found, key=lambda item: (-item[1], item[0]))
+
+
+def length_report(found: list[tuple[str, int]], limit: int = MAX_FUNCTION_LINES) -> str:
+    return (f"{len(found)} function(s) over {limit} lines; split each into named stages (helpers with a "
+            "docstring), behaviour unchanged:\n" + "\n".join(f"  {name}: {n} lines" for name, n in found))
+
+
+def test_every_function_is_a_short_named_stage():
+    offenders = [(name, n) for name, n in long_functions() if name not in LENGTH_EXEMPT]
+    assert not offenders, length_report(offenders)
+
+
+def test_every_length_exemption_is_still_needed():
+    long = {name for name, _ in long_functions()}
+    stale = [name for name in LENGTH_EXEMPT if name not in long]
+    assert not stale, f"no longer over {MAX_FUNCTION_LINES} lines (or gone): remove from LENGTH_EXEMPT: {stale}"
+
+
+def test_decide_is_a_short_pipeline():
+    lengths = dict(function_lengths(ROOT / "knowledge" / "decision" / "engine.py"))
+    n = lengths["knowledge/decision/engine.py:decide"]
+    assert n <= MAX_DECIDE_LINES, f"decide() is {n} lines; at most {MAX_DECIDE_LINES}: move work into a stage"
+
+
+def test_the_length_guard_finds_long_functions(tmp_path):
+    # the guard itself can fail: a long method, a long nested function and a long function under an `if`
+    # are found by their qualified names; one of exactly the limit is not
+    def body(n: int, indent: str) -> str:
+        return "".join(f"{indent}x{i} = {i}\n" for i in range(n))
+
+    probe = tmp_path / "probe.py"
+    probe.write_text(
+        "def at_limit():\n" + body(MAX_FUNCTION_LINES - 1, "    ")
+        + "class Panel:\n    def __init__(self):\n" + body(MAX_FUNCTION_LINES, "        ")
+        + "def outer():\n    def inner():\n" + body(MAX_FUNCTION_LINES, "        ")
+        + "if True:\n    async def hidden():\n" + body(MAX_FUNCTION_LINES, "        "),
+        encoding="utf-8")
+    lengths = dict(function_lengths(probe))
+    assert lengths["probe.py:at_limit"] == MAX_FUNCTION_LINES
+    over = MAX_FUNCTION_LINES + 1
+    found = long_functions([probe])
+    assert found == [("probe.py:outer", over + 1), ("probe.py:Panel.__init__", over), ("probe.py:hidden", over),
+                     ("probe.py:outer.inner", over)]
+    report = length_report(found)
+    assert report.startswith(f"4 function(s) over {MAX_FUNCTION_LINES} lines")
+    assert f"  probe.py:outer.inner: {over} lines" in report.splitlines()
+
+
+if __name__ == "__main__":  # python tests/test_layers.py: list every function over the limit
+    print(length_report(long_functions()))
