@@ -267,6 +267,19 @@ def test_policy_diff_of_a_formulary_names_chosen_agent_changes(tmp_path, capsys)
     assert out.splitlines()[-1] == "1 of 2 changed, 1 unchanged"
 
 
+def test_policy_diff_skips_an_unreadable_order_with_the_reviews_reason(tmp_path, capsys):
+    # a creatinine dated after the as-of time is refused (as `review` refuses it); the reason names that
+    # field, not a misleading "'50' is not a number" from re-reading the row's text strictly
+    path = write(tmp_path, FORMULARY)
+    wl = write(tmp_path, "order_id,exam,age_years,sex,creatinine,creatinine_unit,creatinine_measured_on\n"
+                         "N-1,ct-abdomen-pelvis,50,female,0.9,mg/dL,2026-12-20\n", "list.csv")
+    assert main(["policy", "diff", str(path), "--cases", str(wl), "--as-of", AS_OF]) == 0
+    out = capsys.readouterr().out
+    assert ("- N-1: skipped (patient.creatinine.measured_on: '2026-12-20' is after as_of 2026-12-01T15:00:00; "
+            "allowed: a date at or before as_of)\n") in out
+    assert out.splitlines()[-1] == "0 of 1 changed, 0 unchanged, 1 skipped"
+
+
 def test_policy_diff_needs_an_overlay(capsys):
     assert main(["policy", "diff", str(ROOT / "knowledge/data/policies/esur-v10.yaml")]) == 2
     assert "not an overlay" in capsys.readouterr().err

@@ -128,16 +128,16 @@ def cmd_policy_diff(args: argparse.Namespace) -> int:
         cases = _worklist_cases(args, k_new)
         what = f"{len(cases)} orders of {Path(args.cases).name}"
     else:
-        cases = _load_bank(SCENARIO_BANK)
-        if args.as_of:
-            cases = [(i, {**c, "as_of": args.as_of}) for i, c in cases]
+        cases = [(i, {**c, "as_of": args.as_of} if args.as_of else c, None) for i, c in _load_bank(SCENARIO_BANK)]
         what = f"{len(cases)} scenarios of the bundled bank"
     out = sys.stdout
     out.write(f"policy diff: base {k_old.policy.id} ({k_old.policy_version}) -> {k_new.policy.id} "
               f"({k_new.policy_version}); knowledge {k_new.version}; {what}\n")
     changed = skipped = 0
-    for ident, case in cases:
-        outcome = _diff_one(ident, case, k_old, k_new, out)
+    for ident, case, problem in cases:
+        if problem is not None:
+            out.write(f"- {ident}: skipped ({problem})\n")
+        outcome = "skipped" if problem is not None else _diff_one(ident, case, k_old, k_new, out)
         changed += outcome == "changed"
         skipped += outcome == "skipped"
     out.write(f"{changed} of {len(cases)} changed, {len(cases) - changed - skipped} unchanged"
@@ -145,8 +145,9 @@ def cmd_policy_diff(args: argparse.Namespace) -> int:
     return 0
 
 
-def _worklist_cases(args: argparse.Namespace, k_new) -> list[tuple[str, dict]]:
-    """The orders of ``--cases`` as (order id, case), read as the review reads them, as of ``--as-of``."""
+def _worklist_cases(args: argparse.Namespace, k_new) -> list[tuple[str, dict, str | None]]:
+    """The orders of ``--cases`` as (order id, case, why the row cannot be read or None), read as the review
+    reads them, as of ``--as-of``."""
     from ..decision.department import resolve_exam
     from ..review.columns import CaseBuilder, RowError
     from ..review.worklist import read_worklist
@@ -158,11 +159,12 @@ def _worklist_cases(args: argparse.Namespace, k_new) -> list[tuple[str, dict]]:
     for row in rows:
         c = builder.case_dict(row, resolve_exam(row["exam"], k_new))  # local codes mean the same for both
         c["as_of"] = as_of
+        problem = None
         try:  # the cells are text: read them as the review reads them
             c = builder.validate(c).model_dump(mode="json", exclude_unset=True)
-        except (ContrastAidError, RowError):
-            pass  # decide names the problem below
-        cases.append((str(row.get("order_id", "")), c))
+        except (ContrastAidError, RowError) as exc:
+            problem = exc.message if isinstance(exc, ContrastAidError) else str(exc)  # the review's own words
+        cases.append((str(row.get("order_id", "")), c, problem))
     return cases
 
 
