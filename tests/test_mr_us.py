@@ -198,3 +198,9 @@ def test_note_and_dose_plot_cover_ultrasound(k):
     assert fig is None and "Weight is needed" in words
     lines = agent_dose_lines(d.roles[0].agent_dose)
     assert lines[0] == "Dose: 0.01 mL/kg (10 microlitres/kg (verified); verified)"
+    # every agent ruled out (PEG hypersensitivity): no dose to draw, and the words say so (was a TypeError on the
+    # protocol's missing flow)
+    d = decide({"exam": "us-echocardiography-contrast", "patient": {"peg_allergy": True}}, k)
+    fig, words = dose_figure(d, k)
+    assert fig is None and words.startswith("Dose plan: not worked out") and words.endswith(
+        "Exam protocol: 0.01 mL/kg, at most 150 mL, hand bolus, no set flow.")

@@ -248,8 +248,13 @@ def _dose_not_worked_out(dose: Any, prot: Any) -> str:
     if prot is None:
         return "No intravascular dose protocol for this exam."
     why = " ".join(getattr(dose, "warnings", []) or []) if dose is not None else ""
+    parts = [f"{prot.iodine_g_per_kg:g} g I/kg" if prot.iodine_g_per_kg else None,
+             f"{prot.volume_ml_per_kg:g} mL/kg" if prot.volume_ml_per_kg else None,
+             f"{prot.fixed_volume_ml:g} mL" if prot.fixed_volume_ml else None,
+             f"at most {prot.max_volume_ml:g} mL",
+             f"{prot.flow_ml_s:g} mL/s" if prot.flow_ml_s is not None else "hand bolus, no set flow"]
     return (f"Dose plan: not worked out ({why or 'enter the weight for a weight-based dose'}). Exam protocol: "
-            f"{prot.iodine_g_per_kg or '-'} g I/kg, at most {prot.max_volume_ml:g} mL, {prot.flow_ml_s:g} mL/s.")
+            + ", ".join(p for p in parts if p) + ".")
 
 
 def _strength_bars(pairs: list[tuple[float, float]], chosen_c: Any, iodine: float) -> dict:
