@@ -204,3 +204,13 @@ def test_note_and_dose_plot_cover_ultrasound(k):
     fig, words = dose_figure(d, k)
     assert fig is None and words.startswith("Dose plan: not worked out") and words.endswith(
         "Exam protocol: 0.01 mL/kg, at most 150 mL, hand bolus, no set flow.")
+
+
+def test_egfr_lines_name_the_settings_of_the_exams_agents(k):
+    from knowledge.present.whatif import egfr_lines
+
+    # default profile (ACR-NKF 2020, ACR Manual): iodinated at 30 and 45; first-pass only with a first-pass role
+    assert egfr_lines(k, "ct-abdomen-pelvis") == [(30.0, "hydrate (IV), hold metformin"), (45.0, "consider prophylaxis")]
+    assert egfr_lines(k, "angio-visceral-renal")[0] == (30.0, "hydrate (IV), hydrate (first pass), hold metformin")
+    assert egfr_lines(k, "mr-brain-contrast") == [(30.0, "gadolinium: NSF risk")]  # ACR Manual: NSF below 30
+    assert egfr_lines(k, "us-echocardiography-contrast") == [] and egfr_lines(k, "fluoro-esophagram") == []

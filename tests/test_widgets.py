@@ -197,6 +197,23 @@ def test_plots_are_plotly_mimetype_outputs(app):
     assert "application/vnd.plotly.v1+json" in strip and "45–120" in strip["text/plain"]
 
 
+def test_egfr_plot_lines_follow_the_exams_agents(app):
+    # CT: the iodinated policy lines (default profile: hydrate and hold metformin at 30, ACR-NKF 2020 / ACR
+    # Manual; consider prophylaxis at 45); MRI: only the gadolinium NSF line at 30 (ACR Manual), no metformin
+    p = app.patient
+    p.age_years.value = "60"
+    p.sex.value = "male"
+    p.creatinine_value.value = "1.4"
+
+    def notes():
+        fig = app.egfr_out.outputs[0]["data"]["application/vnd.plotly.v1+json"]
+        return [a["text"] for a in fig["layout"]["annotations"]]
+
+    assert notes() == ["<b>30</b> hydrate (IV), hold metformin", "<b>45</b> consider prophylaxis"]
+    app.exam.select.value = "mr-brain-contrast"
+    assert notes() == ["<b>30</b> gadolinium: NSF risk"]
+
+
 def test_timeline_shows_premedication_and_metformin(app):
     p = app.patient
     p.age_years.value = "60"

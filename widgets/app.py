@@ -25,7 +25,7 @@ from knowledge.present.links import case_from_query, query_from_case
 from knowledge.tables.loader import Knowledge, load_knowledge
 from knowledge.present.report import protocol_note_html, protocol_note_markdown, short_note, timeline
 from knowledge.present.summary import decision_changes, human_ago, plan_summary
-from knowledge.present.whatif import WhatIf, egfr_sweep
+from knowledge.present.whatif import WhatIf, egfr_lines, egfr_sweep
 
 from . import plots
 from .decision import DecisionPanel, SummaryPanel
@@ -123,7 +123,7 @@ class ContrastAidApp(w.VBox):
         self.whatif_out = plots.plot_output()
         self.timeline_out = plots.plot_output()
         self.dose_out = plots.plot_output()
-        self.egfr_fig = plots.egfr_figure(self.knowledge)
+        self._egfr_figs: dict[tuple, dict] = {}  # one eGFR figure per set of policy lines (iodinated, gadolinium)
 
         def plot_box(title: str, out: w.Output) -> w.VBox:
             return w.VBox([w.HTML(f'<h3 class="ca-group-head">{title}</h3>'), out],
@@ -428,10 +428,15 @@ class ContrastAidApp(w.VBox):
         k = self.knowledge
         r = d.renal
 
-        def egfr():
-            return self.egfr_fig, plots.set_egfr(self.egfr_fig, r.egfr, r.category)
+        lines = tuple(egfr_lines(k, d.exam))  # an MRI exam shows the gadolinium line, not the iodinated ones
 
-        self._redraw("egfr", self.egfr_out, (r.egfr, r.category), egfr)
+        def egfr():
+            fig = self._egfr_figs.get(lines)
+            if fig is None:
+                fig = self._egfr_figs[lines] = plots.egfr_figure(list(lines))
+            return fig, plots.set_egfr(fig, r.egfr, r.category)
+
+        self._redraw("egfr", self.egfr_out, (r.egfr, r.category, lines), egfr)
         wi = self.whatif
 
         def whatif():

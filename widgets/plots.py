@@ -60,24 +60,10 @@ def _base_layout(height: int, **kw: Any) -> dict[str, Any]:
 
 
 # ---- eGFR on the KDIGO bands --------------------------------------------------------------------
-def policy_thresholds(knowledge: Knowledge) -> list[tuple[float, str]]:
-    """The policy's eGFR settings, merged where they share a value: [(eGFR, 'hydration, metformin')]."""
-    p = knowledge.policy
-    named = [
-        (p.egfr_hydration_below, "hydrate (IV)"),
-        (p.egfr_prophylaxis_consider_below, "consider prophylaxis"),
-        (p.egfr_first_pass_hydration_below, "hydrate (first pass)"),
-        (p.metformin_hold_egfr_below, "hold metformin"),
-    ]
-    merged: dict[float, list[str]] = {}
-    for x, label in named:
-        merged.setdefault(float(x), []).append(label)
-    return [(x, ", ".join(labels)) for x, labels in sorted(merged.items())]
-
-
-def egfr_figure(knowledge: Knowledge) -> dict:
-    """The bands and the policy lines (a figure dict, built once); the last trace is the patient marker,
-    on a row of its own under the bands so it never covers a band's name."""
+def egfr_figure(lines: list[tuple[float, str]]) -> dict:
+    """The bands and the policy lines (``knowledge.present.whatif.egfr_lines``: the settings that concern the
+    exam's agents) as a figure dict, built once per set of lines; the last trace is the patient marker, on a
+    row of its own under the bands so it never covers a band's name."""
     data: list[dict[str, Any]] = []
     bounds = list(KDIGO_CATEGORIES)  # high to low
     highs = [EGFR_MAX] + [low for _, low in bounds[:-1]]
@@ -88,7 +74,7 @@ def egfr_figure(knowledge: Knowledge) -> dict:
                          text=[name], textposition="inside", insidetextanchor="middle",
                          textfont=dict(color=BAND_TEXT[name]), hoverinfo="text", hovertext=[f"{name}: {span}"]))
     shapes, notes = [], []
-    for i, (x, label) in enumerate(policy_thresholds(knowledge)):
+    for i, (x, label) in enumerate(lines):
         shapes.append(_vline(x, "#5b2a86", 2, "dash"))
         notes.append(dict(x=x, y=1.02 + 0.17 * (i % 2), yref="paper", text=f"<b>{x:g}</b> {label}",
                           showarrow=False, xanchor="left", xshift=2, yanchor="bottom",

@@ -138,3 +138,37 @@ def verdict_at(whatif: WhatIf, egfr: float) -> Segment | None:
         if seg.low <= egfr <= seg.high:
             return seg
     return None
+
+
+#: The policy's eGFR settings drawn on the eGFR plot: setting -> (label, the agent families it is about, the
+#: renal exposures it is about; None = any intravascular role). Iodinated thresholds: ACR-NKF 2020 / ESUR v10
+#: via the policy; the gadolinium one: ACR Manual (NSF) via the policy.
+EGFR_LINES: tuple[tuple[str, str, frozenset, frozenset | None], ...] = (
+    ("egfr_hydration_below", "hydrate (IV)", frozenset({m.Family.iodinated, m.Family.oil}), None),
+    ("egfr_prophylaxis_consider_below", "consider prophylaxis", frozenset({m.Family.iodinated, m.Family.oil}), None),
+    ("egfr_first_pass_hydration_below", "hydrate (first pass)", frozenset({m.Family.iodinated, m.Family.oil}),
+     frozenset({m.RenalExposure.first_pass})),
+    ("metformin_hold_egfr_below", "hold metformin", frozenset({m.Family.iodinated, m.Family.oil}), None),
+    ("gbca_nsf_egfr_below", "gadolinium: NSF risk", frozenset({m.Family.gadolinium}), None),
+)
+
+
+def egfr_lines(knowledge: Knowledge, exam_id: str | None = None) -> list[tuple[float, str]]:
+    """The policy's eGFR settings that concern this exam's intravascular agents, merged where they share a value:
+    [(eGFR, 'hydrate (IV), hold metformin'), ...]. With no exam, the iodinated settings (the X-ray exams).
+
+    An MRI exam gets the gadolinium line, not the iodinated ones; an exam with no first-pass arterial role
+    gets no first-pass line; an ultrasound exam gets none."""
+    exam = knowledge.exams.get(exam_id) if exam_id else None
+    if exam is None:
+        pairs = {(m.Family.iodinated, m.RenalExposure.first_pass)}
+    else:
+        pairs = {(knowledge.agents[a].family, r.renal_exposure) for r in exam.roles if r.route in m.INTRAVASCULAR
+                 for a in r.agents if a in knowledge.agents}
+    merged: dict[float, list[str]] = {}
+    for setting, label, families, exposures in EGFR_LINES:
+        value = getattr(knowledge.policy, setting, None)
+        if value is None or not any(f in families and (exposures is None or e in exposures) for f, e in pairs):
+            continue
+        merged.setdefault(float(value), []).append(label)
+    return [(x, ", ".join(labels)) for x, labels in sorted(merged.items())]
