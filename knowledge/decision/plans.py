@@ -272,7 +272,7 @@ def _add_plans(case: m.Case, k: Any, decision: m.Decision) -> m.Decision:
     exam = k.exams[decision.exam]
     roles, doses, iodinated_intravascular = plan_doses(case, k, exam, decision)
     roles = plan_agent_doses(case, k, exam, roles)
-    catheter = any(r.catheter_study and r.route in m.INTRAVASCULAR for r in exam.roles)
+    catheter = has_catheter_study(exam)
     renal = plan_renal(case, k, decision.renal, doses, iodinated_intravascular, catheter)
     premed = plan_premedication(case, k, decision.premedication)
     met = plan_metformin(case, decision.metformin)
@@ -320,6 +320,22 @@ def plan_doses(case: m.Case, k: Any, exam: m.Exam, decision: m.Decision):
     return new_roles, doses, iodinated_intravascular
 
 
+def has_catheter_study(exam: m.Exam) -> bool:
+    """Whether the exam has an intravascular catheter study (the dose limits are then always worked out)."""
+    return any(r.catheter_study and r.route in m.INTRAVASCULAR for r in exam.roles)
+
+
+def body_gfr(p: m.Patient, egfr: float | None, pol: m.Policy) -> tuple[float | None, float | None]:
+    """Body surface area (policy ``bsa_formula``) and absolute GFR (mL/min, one decimal) from weight, height
+    and the eGFR used; None where an input is missing."""
+    bsa = agfr = None
+    if p.weight_kg is not None and p.height_cm is not None:
+        bsa = body.bsa(p.weight_kg, p.height_cm, pol.bsa_formula)
+        if egfr is not None:
+            agfr = body.absolute_gfr(min(egfr, body.EGFR_RANGE[1]), bsa)
+    return bsa, _r(agfr)
+
+
 def plan_renal(case: m.Case, k: Any, r: m.RenalBlock, doses: list, iodinated_intravascular: bool,
                catheter_study: bool = False) -> m.RenalBlock:
     """Body surface area, absolute GFR, creatinine freshness, dose limits and the hydration plan.
@@ -329,12 +345,7 @@ def plan_renal(case: m.Case, k: Any, r: m.RenalBlock, doses: list, iodinated_int
     intravascular iodinated dose. The hydration regimen shown is the plan's own, so the two never differ."""
     pol: m.Policy = k.policy
     p = case.patient
-    bsa = agfr = None
-    if p.weight_kg is not None and p.height_cm is not None:
-        bsa = body.bsa(p.weight_kg, p.height_cm, pol.bsa_formula)
-        if r.egfr is not None:
-            agfr = body.absolute_gfr(min(r.egfr, body.EGFR_RANGE[1]), bsa)
-    agfr = _r(agfr)
+    bsa, agfr = body_gfr(p, r.egfr, pol)
     fresh, warnings = creatinine_freshness(case, pol, iodinated_intravascular or catheter_study)
     dose_limits = (_dose_limits(doses, p, pol, agfr, catheter_study)
                    if iodinated_intravascular or catheter_study else None)

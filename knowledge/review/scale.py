@@ -15,7 +15,8 @@ from pathlib import Path
 from typing import Any, Callable
 
 from .columns import CaseBuilder
-from .worklist import RESULT_COLUMNS, Review, WorklistError, frame_rows, review_case, review_rows, table_of
+from .fast import outcome
+from .worklist import RESULT_COLUMNS, Review, WorklistError, frame_rows, review_rows, table_of
 
 #: below this many distinct cases a pool costs more than it saves (measured: benchmarks/bench_review.py)
 POOL_MIN_CASES = 4000
@@ -32,19 +33,20 @@ def _init(k: Any) -> None:
     _Worker.knowledge, _Worker.builder = k, CaseBuilder()
 
 
-def _chunk(cases: list[dict]) -> list[dict]:
-    return [review_case(c, _Worker.knowledge, _Worker.builder) for c in cases]
+def _chunk(cases: list[dict]) -> list[tuple]:
+    return [outcome(c, _Worker.knowledge, _Worker.builder) for c in cases]
 
 
 def pool_decider(k: Any, workers: int | None = None, chunk: int = 1000,
                  min_cases: int = POOL_MIN_CASES) -> Callable[[list[dict]], list[dict]]:
-    """A ``decide_many`` for :func:`review_rows` that spreads distinct cases over worker processes."""
+    """A ``decide_many`` for :func:`review_rows` that spreads the cases it must decide in full (the first order
+    of every class) over worker processes; each gives :func:`knowledge.review.fast.outcome`."""
     n = workers or min(2, os.cpu_count() or 1)
 
-    def decide_many(cases: list[dict]) -> list[dict]:
+    def decide_many(cases: list[dict]) -> list[tuple]:
         if n < 2 or len(cases) < min_cases or "fork" not in multiprocessing.get_all_start_methods():
             builder = CaseBuilder()
-            return [review_case(c, k, builder) for c in cases]
+            return [outcome(c, k, builder) for c in cases]
         ctx = multiprocessing.get_context("fork")  # workers inherit the loaded knowledge
         parts = [cases[i:i + chunk] for i in range(0, len(cases), chunk)]
         with ProcessPoolExecutor(n, mp_context=ctx, initializer=_init, initargs=(k,)) as ex:

@@ -9,7 +9,9 @@ CSV/XLSX that a spreadsheet would run as a formula are prefixed with ``'``.
 
 from __future__ import annotations
 
+import csv
 import datetime as dt
+import io
 import operator
 import os
 import tempfile
@@ -19,18 +21,11 @@ from pathlib import Path
 from typing import Any, Callable
 
 from ..errors import ContrastAidError
-from ..tables import models as m
-from ..decision.engine import decide
-from ..decision.department import resolve_exam
-from .columns import REQUIRED, CaseBuilder, RowError
+from .columns import REQUIRED, CaseBuilder
+from .fast import FastReview, rejected, review_case  # noqa: F401  (review_case: the plain path, one case)
+from .summary import RESULT_COLUMNS, fmt_time, summarise_decision  # noqa: F401  (summarise_decision: one decision)
 
 FORMATS = (".csv", ".xlsx", ".parquet")
-#: the columns review adds after the input's own, in order
-RESULT_COLUMNS = (
-    "status", "reason", "exam_id", "planned_agent_verdict", "best_agent", "best_agent_label", "best_agent_verdict",
-    "flags", "alerts", "actions", "first_action_at", "premedication_start_at", "metformin_hold_from",
-    "creatinine_needed_by", "policy", "policy_version", "knowledge_version", "as_of",
-)
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
 
@@ -62,9 +57,10 @@ def _as_text(value: Any) -> str:
 
 
 def read_worklist(path: str | os.PathLike) -> tuple[list[str], list[dict[str, str]]]:
-    """(header, rows as column -> text). Raises WorklistError when the file is unusable."""
-    import pandas as pd
+    """(header, rows as column -> text). Raises WorklistError when the file is unusable.
 
+    A plain CSV file (no quotes, every line as long as the header) is read with the ``csv`` module, which gives
+    the same cells as pandas for such a file without the cost of importing pandas; anything else, pandas."""
     p = Path(path)
     if not p.exists():
         raise WorklistError(f"{p}: file not found")
@@ -74,27 +70,65 @@ def read_worklist(path: str | os.PathLike) -> tuple[list[str], list[dict[str, st
     if ext not in FORMATS:
         raise WorklistError(f"{p.name}: {ext or 'no extension'} is not a worklist format; allowed: "
                             f"{', '.join(FORMATS)}")
+    plain = _plain_csv(p) if ext == ".csv" else None
+    if plain is not None:
+        header = _header(plain[0], p.name)
+        return header, [{h: ("" if v in _NA_TEXT else v).strip() for h, v in zip(header, line)} for line in plain[1]]
+    return frame_rows(_read_frame(p, ext), p.name)
+
+
+def _read_frame(p: Path, ext: str) -> Any:
     try:
+        import pandas as pd
+
         if ext == ".csv":
             try:
-                frame = pd.read_csv(p, dtype=str, keep_default_na=False, encoding="utf-8-sig")
+                return pd.read_csv(p, dtype=str, keep_default_na=False, encoding="utf-8-sig")
             except UnicodeDecodeError:  # a spreadsheet's "CSV" in the Windows code page
-                frame = pd.read_csv(p, dtype=str, keep_default_na=False, encoding="cp1252")
-        elif ext == ".xlsx":
-            frame = pd.read_excel(p, dtype=str, keep_default_na=False, engine="openpyxl")
-        else:
-            frame = pd.read_parquet(p)
+                return pd.read_csv(p, dtype=str, keep_default_na=False, encoding="cp1252")
+        if ext == ".xlsx":
+            return pd.read_excel(p, dtype=str, keep_default_na=False, engine="openpyxl")
+        return pd.read_parquet(p)
     except ImportError as exc:
         raise WorklistError(f"{p.name}: reading {ext} needs {exc.name or 'a missing package'}; "
                             "install contrast-aid with its dependencies") from None
     except Exception as exc:  # pandas raises many types for a file that is not a table
         first = str(exc).splitlines()[0][:120] if str(exc) else type(exc).__name__
         raise WorklistError(f"{p.name}: not a readable {ext[1:].upper()} table ({first})") from None
-    return frame_rows(frame, p.name)
 
 
-def frame_rows(frame: Any, name: str = "worklist") -> tuple[list[str], list[dict[str, str]]]:
-    header = [str(c).strip() for c in frame.columns]
+#: cell texts that pandas (and so the review) reads as "not given"
+_NA_TEXT = frozenset(("NaT", "nan", "<NA>", "None"))
+
+
+def _plain_csv(p: Path) -> tuple[list[str], list[list[str]]] | None:
+    """The raw header and lines of a plain CSV file, as pandas would split them: None unless the file is a
+    regular file, decodes (UTF-8, else the Windows code page, as pandas is asked to), has no quote or NUL
+    character, a header without empty or repeated names, and lines all as long as the header."""
+    if not p.is_file():
+        return None
+    data = p.read_bytes()
+    try:
+        text = data.decode("utf-8-sig")
+    except UnicodeDecodeError:
+        try:
+            text = data.decode("cp1252")
+        except UnicodeDecodeError:
+            return None
+    if '"' in text or "\0" in text:
+        return None
+    lines = list(csv.reader(io.StringIO(text, newline="")))
+    if not lines or not lines[0] or "" in lines[0] or len(set(lines[0])) != len(lines[0]):
+        return None
+    width = len(lines[0])
+    if any(len(line) != width for line in lines):
+        return None
+    return lines[0], lines[1:]
+
+
+def _header(names: list[Any], name: str) -> list[str]:
+    """The header (names without surrounding blanks), checked: named, with the required columns, each once."""
+    header = [str(c).strip() for c in names]
     if not header or all(h.startswith("Unnamed") for h in header):
         raise WorklistError(f"{name}: no header row; allowed: a first row naming the columns ({', '.join(REQUIRED)}, …)")
     missing = [c for c in REQUIRED if c not in header]
@@ -104,117 +138,18 @@ def frame_rows(frame: Any, name: str = "worklist") -> tuple[list[str], list[dict
     dup = [h for h, n in Counter(header).items() if n > 1]
     if dup:
         raise WorklistError(f"{name}: column {', '.join(dup)} appears twice")
+    return header
+
+
+def frame_rows(frame: Any, name: str = "worklist") -> tuple[list[str], list[dict[str, str]]]:
+    header = _header(list(frame.columns), name)
     records = frame.to_dict("records")
     rows = [{h: _as_text(r[c]).strip() for h, c in zip(header, frame.columns)} for r in records]
     return header, rows
 
 
 # ----------------------------------------------------------------------------- reviewing
-def _fmt(t: dt.datetime | None) -> str:
-    return t.strftime("%Y-%m-%d %H:%M") if t else ""
-
-
-def summarise_decision(d: m.Decision, case: m.Case) -> dict[str, Any]:
-    """The review columns of one decision (everything but status and reason)."""
-    planned_verdict = best = best_label = best_verdict = ""
-    flags: list[str] = []
-    alerts: list[str] = []
-    roles = list(d.roles)
-    if case.agent is not None:  # the role the planned agent is for comes first
-        roles.sort(key=lambda rd: not any(o.agent == case.agent for o in rd.options))
-    if roles:
-        rd = roles[0]
-        # the best agent: the department's default choice for the role (first stocked option by rank)
-        first = next((o for o in rd.options if o.stocked is not False), rd.options[0] if rd.options else None)
-        if first is not None:
-            best, best_label, best_verdict = first.agent, first.local_label or "", first.verdict.value
-        planned = next((o for o in rd.options if o.agent == case.agent), None) if case.agent else None
-        if planned is not None:
-            planned_verdict = planned.verdict.value
-            if planned.verdict.severity > 0:
-                flags.append(f"planned agent {planned.verdict.value}")
-            if planned.stocked is False:
-                flags.append("planned agent not stocked here")
-            if first is not None and first.verdict.severity < planned.verdict.severity:
-                flags.append(f"better agent: {first.agent}")
-    if best_verdict and best_verdict != "suitable":
-        flags.append(f"best agent {best_verdict}")
-    r = d.renal
-    if r.hydration_indicated:
-        flags.append("hydration")
-    if d.premedication.indicated:
-        flags.append("premedication")
-    if d.metformin.hold:
-        flags.append("metformin hold")
-    if r.creatinine_required and (r.creatinine_stale or r.creatinine_age_days is None):
-        flags.append("creatinine needed")
-    elif r.creatinine_stale:
-        flags.append("creatinine stale")
-    for alert in getattr(d, "alerts", None) or []:  # the engine's stop / warn alerts, most severe first
-        alerts.append(f"{alert.level.upper()}: {alert.text}")
-        flags.append("stop" if alert.level == "stop" else "warning")
-    if getattr(d, "cannot_proceed_reason", None):
-        flags.append("cannot proceed as requested")
-    alerts += r.warnings + d.premedication.warnings
-    limits = r.dose_limits
-    if limits and (limits.iodine_g_per_gfr_exceeded or limits.cigarroa_exceeded):  # not "not worked out" notes
-        alerts += limits.messages
-    alerts += [c for c in d.cautions if "not stocked here" in c]
-    actions: list[str] = []
-    times: list[dt.datetime] = []
-    premed_start = d.premedication.schedule[0].at if d.premedication.schedule else None
-    if d.premedication.indicated:
-        actions.append(f"premedication ({d.premedication.regimen}) from {_fmt(premed_start) or 'exam time unknown'}")
-        if premed_start:
-            times.append(premed_start)
-    if r.hydration_plan and r.hydration_plan.start_at:
-        actions.append(f"hydration {r.hydration_plan.rate_ml_h:g} mL/h from {_fmt(r.hydration_plan.start_at)}")
-        times.append(r.hydration_plan.start_at)
-    if d.metformin.hold:
-        actions.append(f"hold metformin from {_fmt(d.metformin.hold_from) or 'the exam'}; re-check kidney "
-                       f"function {_fmt(d.metformin.recheck_at)}")
-        if d.metformin.hold_from:
-            times.append(d.metformin.hold_from)
-    needed_by = None
-    if "creatinine needed" in flags or "creatinine stale" in flags:
-        needed_by = case.scheduled_at
-        actions.append(f"creatinine needed by {_fmt(needed_by) or 'the exam'}")
-        if needed_by:
-            times.append(needed_by)
-    return dict(
-        exam_id=d.exam, planned_agent_verdict=planned_verdict, best_agent=best, best_agent_label=best_label,
-        best_agent_verdict=best_verdict, flags="; ".join(dict.fromkeys(flags)), alerts=" | ".join(dict.fromkeys(alerts)),
-        actions="; ".join(actions), first_action_at=_fmt(min(times)) if times else "",
-        premedication_start_at=_fmt(premed_start), metformin_hold_from=_fmt(d.metformin.hold_from),
-        creatinine_needed_by=_fmt(needed_by), policy=d.policy, policy_version=d.policy_version or "",
-        knowledge_version=d.knowledge_version, as_of=_fmt(d.as_of))
-
-
-def review_case(case_dict: dict, k: Any, builder: CaseBuilder) -> dict[str, Any]:
-    """The review columns of one case dict (status ok/flagged, or rejected with the reason)."""
-    try:
-        case = builder.validate(case_dict)
-        d = decide(case, k)
-    except RowError as exc:
-        return _rejected(str(exc), k, case_dict)
-    except ContrastAidError as exc:  # named by the error's field, never by parsing its text
-        field = exc.field or ""
-        column = ("planned_agent" if field == "agent" else "prior_reactions"
-                  if field.startswith("patient.prior_reactions") else field if field in ("exam", "scheduled_at",
-                                                                                      "as_of") else None)
-        msg = exc.at("", rename={field: f"column {column}"}).message if column else exc.message
-        return _rejected(msg, k, case_dict)
-    out = summarise_decision(d, case)
-    out["status"] = "flagged" if out["flags"] or out["alerts"] else "ok"
-    out["reason"] = ""
-    return out
-
-
-def _rejected(reason: str, k: Any, case_dict: dict) -> dict[str, Any]:
-    out = {c: "" for c in RESULT_COLUMNS}
-    out.update(status="rejected", reason=reason, policy=k.policy.id, policy_version=k.policy_version,
-               knowledge_version=k.version, as_of=str(case_dict.get("as_of", "")).replace("T", " ")[:16])
-    return out
+_fmt = fmt_time
 
 
 @dataclass
@@ -224,7 +159,8 @@ class Review:
     header: list[str]
     rows: list[dict[str, Any]]
     ignored_columns: list[str] = field(default_factory=list)
-    unique_cases: int = 0
+    unique_cases: int = 0  # distinct rows (every column read but order_id)
+    decided: int = 0  # rows decided in full (the first of each class, and those the fast path does not cover)
 
     @property
     def columns(self) -> list[str]:
@@ -237,57 +173,50 @@ class Review:
         return 1 if any(r["status"] == "rejected" for r in self.rows) else 0
 
 
-def review_rows(header: list[str], rows: list[dict[str, str]], k: Any, as_of: dt.datetime,
-                progress: Callable[[int], None] | None = None,
-                decide_many: Callable[[list[dict]], list[dict]] | None = None) -> Review:
-    """Review every row in order. ``as_of`` is the list's "now" (the caller reads any clock).
-
-    ``decide_many`` (optional) decides a batch of unique case dicts, e.g. in a process pool."""
-    builder = CaseBuilder()
-    used, ignored = builder.known(header)
-    read = [c for c in used if c != "order_id"]
-    stamp = as_of.isoformat()
+def _distinct(rows: list[dict[str, str]], read: list[str]) -> tuple[list[tuple | None], dict[tuple, dict]]:
+    """Each row's key (every column read but order_id; None: no exam) and the first row of every key."""
     getter = operator.itemgetter(*read) if len(read) > 1 else None
-
-    def pick(row: dict) -> tuple:
-        if getter is not None:
-            try:
-                return getter(row)
-            except KeyError:  # a row without some columns (built by hand, not read from a file)
-                pass
-        return tuple(row.get(c, "") for c in read)
     keyed: list[tuple | None] = []
     unique: dict[tuple, dict] = {}
     for row in rows:
         if not row.get("exam"):
             keyed.append(None)
             continue
-        key = pick(row)  # identical cases: every column read but order_id the same
-        if key not in unique:
-            case = builder.case_dict(row, resolve_exam(row["exam"], k))
-            case["as_of"] = stamp
-            unique[key] = case
+        key = None
+        if getter is not None:
+            try:
+                key = getter(row)
+            except KeyError:  # a row without some columns (built by hand, not read from a file)
+                pass
+        if key is None:
+            key = tuple(row.get(c, "") for c in read)
+        unique.setdefault(key, row)
         keyed.append(key)
+    return keyed, unique
+
+
+def review_rows(header: list[str], rows: list[dict[str, str]], k: Any, as_of: dt.datetime,
+                progress: Callable[[int], None] | None = None,
+                decide_many: Callable[[list[dict]], list] | None = None) -> Review:
+    """Review every row in order. ``as_of`` is the list's "now" (the caller reads any clock).
+
+    Identical rows are reviewed once; distinct ones by :class:`knowledge.review.fast.FastReview` (one full
+    decision per class of orders). ``decide_many`` (optional) decides a batch of case dicts, returning
+    :func:`knowledge.review.fast.outcome` for each, e.g. in a process pool (``scale.pool_decider``)."""
+    builder = CaseBuilder()
+    used, ignored = builder.known(header)
+    read = [c for c in used if c != "order_id"]
+    keyed, unique = _distinct(rows, read)
     keys = list(unique)
-    if decide_many is not None:
-        results = dict(zip(keys, decide_many([unique[q] for q in keys])))
-        if progress:
-            progress(len(rows))
-    else:
-        results = {}
-        step = max(1, len(keys) // 100)
-        for i, q in enumerate(keys, start=1):
-            results[q] = review_case(unique[q], k, builder)
-            if progress and i % step == 0:
-                progress(step)
-        if progress and len(rows) > len(keys) - len(keys) % step:  # the rest, repeated cases included
-            progress(len(rows) - (len(keys) - len(keys) % step))
-    out_rows = []
-    for row, key in zip(rows, keyed):
-        res = results[key] if key is not None else _rejected("column exam: empty; allowed: an exam id or a "
-                                                             "local procedure code", k, {"as_of": as_of.isoformat()})
-        out_rows.append({**row, **res})
-    return Review(header=header, rows=out_rows, ignored_columns=ignored, unique_cases=len(keys))
+    fast = FastReview(k, builder, read, as_of)
+    results = dict(zip(keys, fast.review([unique[q] for q in keys], progress, decide_many)))
+    ticked = 0 if decide_many is not None else len(keys) // max(1, len(keys) // 100) * max(1, len(keys) // 100)
+    if progress and len(rows) > ticked:  # the rest, repeated rows included, so the ticks add up to the row count
+        progress(len(rows) - ticked)
+    empty = rejected("column exam: empty; allowed: an exam id or a local procedure code", k, as_of.isoformat())
+    out_rows = [{**row, **(results[key] if key is not None else empty)} for row, key in zip(rows, keyed)]
+    return Review(header=header, rows=out_rows, ignored_columns=ignored, unique_cases=len(keys),
+                  decided=fast.stats["decided"])
 
 
 # ----------------------------------------------------------------------------- summary
@@ -325,12 +254,27 @@ def summary_lines(review: Review, before: dt.datetime | None = None) -> list[str
 
 
 # ----------------------------------------------------------------------------- writing
+def table_cells(review: Review, protect: bool) -> tuple[list[str], list[list[Any]]]:
+    """(columns, rows of cells) of the reviewed list; ``protect``: cells a spreadsheet would run are text."""
+    cols = review.columns
+    if protect:
+        return cols, [[safe_cell(r.get(c, "")) for c in cols] for r in review.rows]
+    return cols, [[r.get(c, "") for c in cols] for r in review.rows]
+
+
 def table_of(review: Review, protect: bool) -> Any:
     import pandas as pd
 
-    cols = review.columns
-    data = [[(safe_cell(r.get(c, "")) if protect else r.get(c, "")) for c in cols] for r in review.rows]
+    cols, data = table_cells(review, protect)
     return pd.DataFrame(data, columns=cols, dtype=object)
+
+
+@dataclass
+class Cells:
+    """A reviewed list as columns and rows of cells: what a CSV file is written from (without pandas)."""
+
+    columns: list[str]
+    rows: list[list[Any]]
 
 
 def write_reviewed(review: Review, out: str | os.PathLike,
@@ -341,7 +285,10 @@ def write_reviewed(review: Review, out: str | os.PathLike,
     if ext not in FORMATS:
         raise WorklistError(f"-o {target.name}: {ext or 'no extension'} is not an output format; allowed: "
                             f"{', '.join(FORMATS)}")
-    frame = table_of(review, protect=ext != ".parquet")
+    if ext == ".csv":
+        frame: Any = Cells(*table_cells(review, protect=True))
+    else:
+        frame = table_of(review, protect=ext != ".parquet")
     if ext == ".parquet":
         frame = frame.astype(str)
     folder = target.parent if str(target.parent) else Path(".")
@@ -367,7 +314,12 @@ def write_reviewed(review: Review, out: str | os.PathLike,
 
 
 def _write(frame: Any, path: Path, ext: str) -> None:
-    if ext == ".csv":
+    if ext == ".csv" and isinstance(frame, Cells):  # the csv module writes what pandas' to_csv would
+        with open(path, "w", encoding="utf-8", newline="") as fh:
+            out = csv.writer(fh, lineterminator=os.linesep)
+            out.writerow(frame.columns)
+            out.writerows(frame.rows)
+    elif ext == ".csv":
         frame.to_csv(path, index=False, encoding="utf-8")
     elif ext == ".xlsx":
         frame.to_excel(path, index=False, engine="openpyxl")

@@ -1,0 +1,511 @@
+"""Reviewing the distinct orders of a list: one full ``decide`` per class of orders, the numbers per order.
+
+Orders of one list differ mostly in numbers (age, weight, height, creatinine and its date, exam time) and
+agree in what the rules read (exam, planned agent, flags, reactions, kidney band). The plain path
+(:func:`review_case`) decides every order in full. :class:`FastReview` gives the same cells with one full
+``decide`` per *class*, and only the parts that depend on the numbers worked out for each order:
+
+1. **The order's case.** The cells other than the six numeric ones (:data:`CONTINUOUS`) form a *template*,
+   validated once by the model. A numeric cell is validated alone by the same model (pydantic validates each
+   field on its own: the case and patient models have no cross-field validators), once per distinct text, and
+   the order's case is the template's with those values put in; the order's date-times are checked against
+   its as_of (``check_case_times``) as every case is.
+2. **The class key.** Everything the engine reads before the plans, besides the numbers, is in the template
+   (exam, planned agent, override, urgency, as_of, reactions, metformin, dialysis, acute kidney injury, and
+   every patient and history fact a rule of the exam tests). The numbers reach the rules only through the
+   facts :data:`DERIVED_FACTS` (the eGFR from ``kidney_stage``, its category, age, weight, height): the key
+   holds the result of every test a rule of the exam makes on them, whether an eGFR is known (metformin
+   advice) and the alerts ``kidney_stage`` raised. Orders with the same key have the same options, verdicts,
+   choices, flags, alerts and cautions (:class:`~knowledge.review.summary.ChoicePart`): the first one is
+   decided in full and gives the :class:`Record` of the class. An exam whose rules test a fact that is not
+   sorted into one of the two kinds is not sped up (every order decided in full).
+3. **The plans, per order**, by the plan stages themselves (``knowledge.decision.plans``), each called on
+   the order's own case: creatinine freshness, body surface and absolute GFR, the dose limits, the hydration
+   plan, the premedication schedule and the metformin hold. Stages whose inputs repeat are remembered by
+   exactly the inputs they read (the doses: chosen agents, weight, child or not, IV access and planned
+   volume, flow and strength; the schedule: exam time, as_of, urgency, child or not).
+
+Any error on the way sends the order to the plain path, which rejects it with the engine's own words. The
+cells of both paths come from :func:`knowledge.review.summary.columns`; ``tests/test_review_fast.py`` checks
+the two paths agree, cell by cell, on generated lists and on the scenario bank.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import operator
+from collections import Counter
+from dataclasses import dataclass
+from typing import Any, Callable
+
+from pydantic import ValidationError
+
+from ..calculators import paediatric
+from ..decision import plans
+from ..decision.agent_doses import plan_agent_doses
+from ..decision.department import resolve_exam
+from ..decision.engine import case_facts, case_time_problems, decide, kidney_stage
+from ..errors import ContrastAidError
+from ..tables import models as m
+from ..tables.conditions import STATIC_PREFIXES, compile_condition, facts_used
+from .columns import CaseBuilder, RowError
+from .summary import RESULT_COLUMNS, ChoicePart, choice_part, columns, plan_part, summarise_decision
+
+#: the case fields that vary from order to order and are worked out per order
+CONTINUOUS = (("patient", "age_years"), ("patient", "weight_kg"), ("patient", "height_cm"),
+              ("patient", "creatinine", "value"), ("patient", "creatinine", "measured_on"), ("scheduled_at",))
+#: the facts (``engine.case_facts``) that the continuous fields feed; every other fact is fixed by the template
+DERIVED_FACTS = frozenset({"patient.age_years", "patient.weight_kg", "patient.height_cm", "renal.egfr",
+                           "renal.category"})
+_BAD = object()  # a cell the model refuses
+_MISSING = object()
+_setattr = object.__setattr__
+
+
+# ----------------------------------------------------------------------------- the plain path
+def rejected(reason: str, k: Any, as_of: Any) -> dict[str, Any]:
+    """The result columns of a rejected order."""
+    out = dict.fromkeys(RESULT_COLUMNS, "")
+    out.update(policy=k.policy.id, policy_version=k.policy_version, knowledge_version=k.version,
+               as_of=str(as_of or "").replace("T", " ")[:16], status="rejected", reason=reason)
+    return out
+
+
+def outcome(case_dict: dict, k: Any, builder: CaseBuilder) -> tuple[dict[str, Any], Record | None]:
+    """The review columns of one case dict (status ok/flagged, or rejected with the reason), and the
+    :class:`Record` of its class when it was decided."""
+    try:
+        case = builder.validate(case_dict)
+        d = decide(case, k)
+    except RowError as exc:
+        return rejected(str(exc), k, case_dict.get("as_of")), None
+    except ContrastAidError as exc:  # named by the error's field, never by parsing its text
+        field = exc.field or ""
+        column = ("planned_agent" if field == "agent" else "prior_reactions"
+                  if field.startswith("patient.prior_reactions") else field if field in ("exam", "scheduled_at",
+                                                                                      "as_of") else None)
+        msg = exc.at("", rename={field: f"column {column}"}).message if column else exc.message
+        return rejected(msg, k, case_dict.get("as_of")), None
+    return summarise_decision(d, case), Record.of(d, case)
+
+
+def review_case(case_dict: dict, k: Any, builder: CaseBuilder) -> dict[str, Any]:
+    """The review columns of one case dict, decided in full (the plain path)."""
+    return outcome(case_dict, k, builder)[0]
+
+
+@dataclass(frozen=True)
+class Record:
+    """What the first order of a class gives every order of it: the choice part of the cells and what the
+    plan stages read from the decision (the roles' chosen agents, the blocks they fill in)."""
+
+    choice: ChoicePart
+    exam_id: str
+    roles: list
+    premedication: m.PremedicationBlock
+    metformin: m.MetforminBlock
+    hydration: bool
+    chosen: tuple  # (exam, (agent, family) chosen per role): what the dose stages read from the decision
+
+    @classmethod
+    def of(cls, d: m.Decision, case: m.Case) -> Record:
+        chosen = tuple(next(((o.agent, o.family) for o in rd.options if o.chosen), None) for rd in d.roles)
+        return cls(choice=choice_part(d, case.agent), exam_id=d.exam, roles=list(d.roles),
+                   premedication=d.premedication, metformin=d.metformin, hydration=d.renal.hydration_indicated,
+                   chosen=(d.exam, chosen))
+
+
+# ----------------------------------------------------------------------------- templates and classes
+def _with(obj: Any, changes: dict) -> Any:
+    """A copy of a (frozen) model with some fields replaced: what the model would hold for those values."""
+    new = object.__new__(type(obj))
+    _setattr(new, "__dict__", {**obj.__dict__, **changes})
+    _setattr(new, "__pydantic_extra__", None)
+    _setattr(new, "__pydantic_fields_set__", set(obj.__pydantic_fields_set__))
+    _setattr(new, "__pydantic_private__", None)
+    return new
+
+
+@dataclass(frozen=True)
+class _Exam:
+    """Per exam: the fixed facts its rules test, and its rules' tests on each derived fact."""
+
+    fixed: tuple[str, ...]
+    tests: tuple[tuple[str, tuple[Callable[[dict], bool], ...]], ...]  # (derived fact, its tests)
+
+
+@dataclass
+class _Template:
+    case: m.Case
+    exam: _Exam
+    key: int  # the class key's fixed part (numbered by FastReview._id)
+    doses_key: int  # what the dose stages read besides the chosen agents, weight and age (numbered)
+    #: the models to rebuild for an order, deepest first: (path, template's model, [(field, column)],
+    #: [(field, path of the rebuilt child)])
+    owners: tuple
+
+
+def _owners(case: m.Case, given: list[tuple[str, tuple]], cells: dict[str, dict]) -> tuple:
+    """How an order's case is rebuilt from the template's: every model on the way to a given numeric cell
+    (``cells``: the values already read, per column)."""
+    prefixes = {path[:i] for _, path in given for i in range(len(path))}
+    out = []
+    for prefix in sorted(prefixes, key=len, reverse=True):
+        obj = case
+        for part in prefix:
+            obj = getattr(obj, part)
+        fields = [(path[-1], name, cells[name]) for name, path in given if path[:-1] == prefix]
+        children = [(child[-1], child) for child in prefixes if len(child) == len(prefix) + 1 and child[:-1] == prefix]
+        out.append((prefix, obj, fields, children))
+    return tuple(out)
+
+
+@dataclass
+class _Order:
+    case: m.Case
+    egfr: float | None  # as kidney_stage gives it
+    key: tuple  # the class key
+    tpl: _Template
+
+
+class _Alerts(list):
+    """Collects the alerts ``kidney_stage`` raises (level and text: what the decision shows)."""
+
+    def alert(self, level: str, text: str, rule: str, source: str) -> None:
+        self.append((level, text))
+
+
+class _Roles:
+    """The decision's roles, as the dose stages read them (``decision.roles``)."""
+
+    def __init__(self, roles: list) -> None:
+        self.roles = roles
+
+
+@dataclass
+class _Renal:
+    """The renal block's cells of one order, as :func:`~knowledge.review.summary.plan_part` reads them."""
+
+    creatinine_required: bool
+    creatinine_stale: bool | None
+    creatinine_age_days: float | None
+    warnings: list[str]
+    dose_limits: Any
+    hydration_plan: Any
+
+
+def _tests(cond: m.Condition):
+    """Every single test of a condition tree."""
+    if isinstance(cond, m.Test):
+        yield cond
+    elif isinstance(cond, m.All):
+        for c in cond.all:
+            yield from _tests(c)
+    elif isinstance(cond, m.AnyOf):
+        for c in cond.any:
+            yield from _tests(c)
+    else:
+        yield from _tests(cond.not_)
+
+
+def _hashable(value: Any) -> Any:
+    return tuple(value) if isinstance(value, list) else value
+
+
+_NOT_FAST = object()  # a template whose exam the fast path does not cover
+
+
+class FastReview:
+    """Reviews distinct worklist rows (column -> text) under one knowledge and one as_of; see the module doc.
+
+    State lives on the object (one per review): templates, class records and the remembered stage results."""
+
+    def __init__(self, k: Any, builder: CaseBuilder, read: list[str], as_of: dt.datetime) -> None:
+        self.k, self.builder, self.read, self.stamp = k, builder, list(read), as_of.isoformat()
+        paths = {builder.by_name[c].path: c for c in self.read if builder.by_name[c].kind == "scalar"}
+        self.varying = [(paths[p], p) for p in CONTINUOUS if p in paths]
+        varying = {name for name, _ in self.varying}
+        fixed = [c for c in self.read if c not in varying]
+        self._fixed = operator.itemgetter(*fixed) if len(fixed) > 1 else None
+        self._fixed_names = fixed
+        self._varying_names = [name for name, _ in self.varying]
+        self.fixed_facts = frozenset(case_facts(m.Case(exam="-"), None, None)) - DERIVED_FACTS
+        self.templates: dict[tuple, Any] = {}
+        self.records: dict[tuple, Record] = {}
+        self.exams: dict[str, _Exam | None] = {}
+        self.cells: dict[str, dict[str, Any]] = {name: {} for name, _ in self.varying}  # column -> text -> value
+        self.catheter: dict[str, bool] = {}
+        self.ids: dict[tuple, int] = {}
+        self.cells_of: dict[tuple, dict] = {}  # (class choice, plan part, exam time) -> cells
+        self.tested: dict[tuple, tuple] = {}  # (tests, fact value) -> results
+        self.memo: dict[str, dict] = {n: {} for n in ("doses", "limits", "hydration", "premedication", "metformin")}
+        self.stats: Counter = Counter()
+
+    # ------------------------------------------------------------------ the plain path
+    def case_dict(self, row: dict[str, str]) -> dict:
+        case = self.builder.case_dict({c: row.get(c, "") for c in self.read}, resolve_exam(row["exam"], self.k))
+        case["as_of"] = self.stamp
+        return case
+
+    def plain(self, row: dict[str, str]) -> dict[str, Any]:
+        self.stats["decided"] += 1
+        return review_case(self.case_dict(row), self.k, self.builder)
+
+    # ------------------------------------------------------------------ templates
+    def _template_key(self, row: dict[str, str]) -> tuple:
+        if self._fixed is not None:
+            try:
+                fixed = self._fixed(row)
+            except KeyError:  # a row without some columns (built by hand, not read from a file)
+                fixed = tuple(row.get(c, "") for c in self._fixed_names)
+        else:
+            fixed = tuple(row.get(c, "") for c in self._fixed_names)
+        return fixed, tuple(not row.get(c, "") for c in self._varying_names)
+
+    def exam(self, exam_id: str) -> _Exam | None:
+        """The facts the exam's rules test (None: a fact of neither kind, so the exam is not sped up)."""
+        if exam_id not in self.exams:
+            self.exams[exam_id] = self._exam(exam_id)
+        return self.exams[exam_id]
+
+    def _exam(self, exam_id: str) -> _Exam | None:
+        k = self.k
+        exam = k.exams.get(exam_id)
+        if exam is None:
+            return None
+        rules = [cr for i in range(len(exam.roles)) for _, _, crs in k.candidates[(exam_id, i)] for cr in crs]
+        rules += list(k.case_rules)
+        names = {f for cr in rules for f in facts_used(cr.rule.when) if not f.startswith(STATIC_PREFIXES)}
+        fixed = sorted(names - DERIVED_FACTS)
+        if not set(fixed) <= self.fixed_facts:
+            return None
+        tests: dict[str, dict[tuple, Callable[[dict], bool]]] = {}
+        for cr in rules:
+            for t in _tests(cr.rule.when):
+                if t.fact in DERIVED_FACTS:
+                    tests.setdefault(t.fact, {}).setdefault(
+                        (t.operator, repr(t.operand)), compile_condition(t, k.policy, cr.rule.id, cr.rule.scope))
+        return _Exam(tuple(fixed), tuple((f, tuple(t.values())) for f, t in sorted(tests.items())))
+
+    def _template(self, row: dict[str, str]) -> Any:
+        """The template of a row's class of cells (None: this row does not validate; try the next one)."""
+        try:
+            case = self.builder.validate(self.case_dict(row))
+        except (RowError, ContrastAidError):
+            return None
+        info = self.exam(case.exam)
+        if info is None:
+            return _NOT_FAST
+        p = case.patient
+        facts = case_facts(case, None, None)
+        key = (case.exam, case.agent, case.override_culprit, case.urgency, case.as_of, tuple(p.prior_reactions),
+               p.takes_metformin, p.dialysis, p.acute_kidney_injury, tuple(_hashable(facts[n]) for n in info.fixed))
+        doses_key = (p.iv_access, case.planned_volume_ml, case.planned_flow_ml_s, case.planned_concentration_mg_i_ml)
+        given = [(name, path) for name, path in self.varying if row.get(name, "")]
+        return _Template(case, info, self._id(key), self._id(doses_key), _owners(case, given, self.cells))
+
+    def _id(self, key: tuple) -> int:
+        """A small number for a long key (keys are compared once, then hashed as numbers)."""
+        return self.ids.setdefault(key, len(self.ids))
+
+    # ------------------------------------------------------------------ one order
+    @staticmethod
+    def _cell(owner: Any, field: str, cells: dict[str, Any], text: str) -> Any:
+        """A numeric cell's value, validated alone by the model that holds the field (once per text)."""
+        try:
+            value = getattr(type(owner).model_validate({**owner.__dict__, field: text}), field)
+        except ValidationError:
+            value = _BAD
+        cells[text] = value
+        return value
+
+    def _case(self, tpl: _Template, row: dict[str, str]) -> m.Case | None:
+        """The order's case: the template's, with the order's numeric cells (None: a cell the model refuses)."""
+        built: dict[tuple, Any] = {}
+        for prefix, obj, fields, children in tpl.owners:
+            changes = {}
+            for field, name, cells in fields:
+                text = row[name]
+                value = cells.get(text, _MISSING)
+                if value is _MISSING:
+                    value = self._cell(obj, field, cells, text)
+                if value is _BAD:
+                    return None
+                changes[field] = value
+            for field, child in children:
+                changes[field] = built[child]
+            built[prefix] = _with(obj, changes)
+        return built.get((), tpl.case)
+
+    def _tests(self, tpl: _Template, derived: dict[str, Any]) -> tuple:
+        """The results of the exam's rules' tests on the order's derived facts (once per fact value)."""
+        out = []
+        for fact, tests in tpl.exam.tests:
+            value = derived[fact]
+            key = (id(tests), value)
+            found = self.tested.get(key)
+            if found is None:
+                found = self.tested[key] = tuple(test({fact: value}) for test in tests)
+            out.append(found)
+        return tuple(out)
+
+    def prepare(self, row: dict[str, str]) -> _Order | None:
+        """The order's case and class key (None: the order goes the plain path)."""
+        tkey = self._template_key(row)
+        tpl = self.templates.get(tkey)
+        if tpl is None:
+            tpl = self._template(row)
+            if tpl is None:
+                return None
+            self.templates[tkey] = tpl
+        if tpl is _NOT_FAST:
+            return None
+        case = self._case(tpl, row)
+        if case is None or case_time_problems(case):
+            return None
+        alerts = _Alerts()
+        try:
+            egfr, _, category, _, _ = kidney_stage(case.patient, self.k.policy, alerts)
+        except ContrastAidError:
+            return None
+        p = case.patient
+        derived = {"patient.age_years": p.age_years, "patient.weight_kg": p.weight_kg,
+                   "patient.height_cm": p.height_cm, "renal.egfr": egfr, "renal.category": category}
+        return _Order(case, egfr, (tpl.key, self._tests(tpl, derived), egfr is None, tuple(alerts)), tpl)
+
+    def finish(self, order: _Order, rec: Record) -> dict[str, Any]:
+        """The cells of an order of a decided class: the class's choice part, the order's own plans."""
+        case, k = order.case, self.k
+        p, pol = case.patient, k.policy
+        exam = k.exams[rec.exam_id]
+        dkey, doses, iodinated = self._doses(order, rec, exam)
+        catheter = self.catheter.get(exam.id)
+        if catheter is None:
+            catheter = self.catheter[exam.id] = plans.has_catheter_study(exam)
+        _, agfr = plans.body_gfr(p, round(order.egfr, 1) if order.egfr is not None else None, pol)
+        fresh, warnings = plans.creatinine_freshness(case, pol, iodinated or catheter)
+        limits = self._limits(dkey, doses, p, agfr, catheter) if iodinated or catheter else None
+        hydration = None
+        if rec.hydration:
+            hydration, more = self._hydration(case)
+            warnings = warnings + list(more)
+        premedication = self._premedication(case, rec) if rec.choice.premedication else rec.premedication
+        metformin = self._metformin(case, rec) if rec.choice.metformin_hold else rec.metformin
+        renal = _Renal(fresh["creatinine_required"], fresh["creatinine_stale"], fresh["creatinine_age_days"],
+                       warnings, limits, hydration)
+        part = plan_part(renal, premedication, metformin)
+        # the exam time reaches the cells only as "creatinine needed by" (summary.columns)
+        key = (id(rec.choice), part, case.scheduled_at if part.creatinine_flag else None)
+        cells = self.cells_of.get(key)
+        if cells is None:
+            cells = self.cells_of[key] = columns(rec.choice, part, case.scheduled_at)
+        return cells
+
+    # ------------------------------------------------------------------ plan stages, remembered by their inputs
+    def _doses(self, order: _Order, rec: Record, exam: m.Exam) -> tuple[tuple, list, bool]:
+        """``plan_doses`` (and ``plan_agent_doses``, whose errors reject an order too): they read the chosen
+        agents, the weight, whether the patient is a child, the IV access and the planned volume, flow and
+        strength."""
+        case = order.case
+        p = case.patient
+        child = p.age_years is not None and p.age_years < paediatric.ADULT_AGE_YEARS  # as plans.plan_doses
+        key = (rec.chosen, child, p.weight_kg, order.tpl.doses_key)
+        found = self.memo["doses"].get(key)
+        if found is None:
+            roles, doses, iodinated = plans.plan_doses(case, self.k, exam, _Roles(rec.roles))
+            plan_agent_doses(case, self.k, exam, roles)
+            found = self.memo["doses"][key] = (doses, iodinated)
+        return key, found[0], found[1]
+
+    def _limits(self, dkey: tuple, doses: list, p: m.Patient, agfr: float | None, catheter: bool) -> Any:
+        """The renal dose limits: they read the doses, dialysis, the absolute GFR and, for a catheter study
+        (Cigarroa), the weight and the creatinine."""
+        cigarroa = (p.weight_kg, p.creatinine) if catheter or any(role.catheter_study for role, _ in doses) else None
+        key = (dkey, p.dialysis, agfr, catheter, cigarroa)
+        found = self.memo["limits"].get(key)
+        if found is None:
+            found = self.memo["limits"][key] = plans._dose_limits(doses, p, self.k.policy, agfr, catheter)
+        return found
+
+    def _hydration(self, case: m.Case) -> tuple[Any, tuple[str, ...]]:
+        """``hydration_plan``: it reads the weight, the exam time and heart failure."""
+        p = case.patient
+        key = (p.weight_kg, case.scheduled_at, p.heart_failure)
+        found = self.memo["hydration"].get(key)
+        if found is None:
+            more: list[str] = []
+            plan = plans.hydration_plan(case, self.k.policy, more)
+            found = self.memo["hydration"][key] = (plan, tuple(more))
+        return found
+
+    def _premedication(self, case: m.Case, rec: Record) -> Any:
+        """``plan_premedication``: it reads the exam time, as_of, urgency and whether the patient is a child."""
+        age = case.patient.age_years
+        key = (case.scheduled_at, case.as_of, case.urgency, age is not None and age < paediatric.ADULT_AGE_YEARS)
+        found = self.memo["premedication"].get(key)
+        if found is None:
+            found = self.memo["premedication"][key] = plans.plan_premedication(case, self.k, rec.premedication)
+        return found
+
+    def _metformin(self, case: m.Case, rec: Record) -> Any:
+        """``plan_metformin``: it reads the exam time."""
+        found = self.memo["metformin"].get(case.scheduled_at)
+        if found is None:
+            found = self.memo["metformin"][case.scheduled_at] = plans.plan_metformin(case, rec.metformin)
+        return found
+
+    # ------------------------------------------------------------------ driving a list
+    def one(self, row: dict[str, str], order: Any = _MISSING) -> dict[str, Any]:
+        """The cells of one distinct row: decided in full when it is the first of its class."""
+        if order is _MISSING:
+            order = self.prepare(row)
+        if order is None:
+            return self.plain(row)
+        rec = self.records.get(order.key)
+        if rec is None:
+            self.stats["decided"] += 1
+            result, rec = outcome(self.case_dict(row), self.k, self.builder)
+            if rec is not None:
+                self.records[order.key] = rec
+            return result
+        try:
+            result = self.finish(order, rec)
+        except ContrastAidError:  # a plan stage refuses this order's numbers: the plain path says why
+            return self.plain(row)
+        self.stats["fast"] += 1
+        return result
+
+    def review(self, rows: list[dict[str, str]], progress: Callable[[int], None] | None = None,
+               decide_many: Callable[[list[dict]], list] | None = None) -> list[dict[str, Any]]:
+        """The cells of every distinct row, in order. ``decide_many`` (e.g. a process pool) decides the first
+        order of every class, and the orders the fast path does not cover, as one batch."""
+        if decide_many is not None:
+            return self._batch(rows, decide_many)
+        out = []
+        step = max(1, len(rows) // 100)
+        for i, row in enumerate(rows, start=1):
+            out.append(self.one(row))
+            if progress and i % step == 0:
+                progress(step)
+        return out
+
+    def _batch(self, rows: list[dict[str, str]], decide_many: Callable[[list[dict]], list]) -> list[dict[str, Any]]:
+        orders = [self.prepare(row) for row in rows]
+        first: dict[tuple, int] = {}
+        jobs = []
+        for i, order in enumerate(orders):
+            if order is None or order.key not in self.records and order.key not in first:
+                if order is not None:
+                    first[order.key] = i
+                jobs.append(i)
+        out: list[Any] = [None] * len(rows)
+        decided = decide_many([self.case_dict(rows[i]) for i in jobs])
+        self.stats["decided"] += len(jobs)
+        for i, (result, rec) in zip(jobs, decided):
+            out[i] = result
+            if orders[i] is not None and rec is not None:
+                self.records[orders[i].key] = rec
+        for i, order in enumerate(orders):
+            if out[i] is None:
+                out[i] = self.one(rows[i], order)
+        return out
