@@ -36,7 +36,7 @@ from benchmarks.worklist_gen import HEADER, make_rows  # noqa: E402
 from knowledge.decision.engine import decide  # noqa: E402
 from knowledge.review import worklist as wl  # noqa: E402
 from knowledge.review.columns import CaseBuilder  # noqa: E402
-from knowledge.review.scale import pool_decider  # noqa: E402
+from knowledge.review.scale import pool_reviewer  # noqa: E402
 from knowledge.tables.loader import load_knowledge  # noqa: E402
 
 OVERLAY = ROOT / "examples" / "department-overlay.yaml"
@@ -72,9 +72,9 @@ def plain_loop_rate(rows: list[list[str]], k, limit: int) -> tuple[float, float]
 def in_process(rows: list[list[str]], k, workers: int) -> tuple[float, float, int]:
     """(orders/s wall, orders per CPU-second of this process and its workers, distinct cases)."""
     dict_rows = [dict(zip(HEADER, r)) for r in rows]
-    many = pool_decider(k, workers, min_cases=1) if workers > 1 else None
+    many = pool_reviewer(workers, min_rows=1) if workers > 1 else None
     t, c, ch = time.perf_counter(), time.process_time(), _children_cpu()
-    review = wl.review_rows(HEADER, dict_rows, k, AS_OF, decide_many=many)
+    review = wl.review_rows(HEADER, dict_rows, k, AS_OF, review_many=many)
     cpu = time.process_time() - c + _children_cpu() - ch
     return len(rows) / (time.perf_counter() - t), len(rows) / cpu, review.unique_cases
 

@@ -218,15 +218,16 @@ def test_xlsx_and_parquet_round_trip_give_the_same_review(tmp_path, capsys):
     assert outs["csv"] == outs["xlsx"] == outs["parquet"]
 
 
-def test_process_pool_gives_the_same_rows():
-    from knowledge.review.scale import pool_decider
+@pytest.mark.parametrize("workers", [2, 3])
+def test_process_pool_gives_the_same_rows(workers):
+    from knowledge.review.scale import pool_reviewer
 
     k = load_knowledge(policy=OVERLAY)
     header, rows = wl.read_worklist(SAMPLE)
     rows = [{**r, "age_years": str(40 + i % 40)} if r["age_years"] else r for i, r in enumerate(rows * 30)]
     as_of = dt.datetime(2026, 12, 1, 16)
     plain = wl.review_rows(header, rows, k, as_of)
-    pooled = wl.review_rows(header, rows, k, as_of, decide_many=pool_decider(k, workers=2, chunk=7, min_cases=1))
+    pooled = wl.review_rows(header, rows, k, as_of, review_many=pool_reviewer(workers=workers, min_rows=1))
     assert pooled.rows == plain.rows
     assert plain.unique_cases < len(rows)  # identical cases decided once
 

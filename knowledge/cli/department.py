@@ -205,6 +205,15 @@ def _progress_bar(total: int, enabled: bool):
     return bar, bar.update
 
 
+def _pool(workers: int) -> Any:
+    """The process pool ``--workers`` asks for (None: review in this process)."""
+    if workers == 1:
+        return None
+    from ..review.scale import pool_reviewer
+
+    return pool_reviewer(workers)
+
+
 def cmd_review(args: argparse.Namespace) -> int:
     from ..review.worklist import WorklistError, read_worklist, review_rows, summary_lines, write_reviewed
 
@@ -222,13 +231,10 @@ def cmd_review(args: argparse.Namespace) -> int:
             raise WorklistError("--engine dask: --scheduler ADDRESS is needed (e.g. tcp://127.0.0.1:8786)")
         review = review_dask(src, args.policy, args.scheduler, as_of)
     else:
-        from ..review.scale import pool_decider
-
         header, rows = read_worklist(src)
         bar, tick = _progress_bar(len(rows), sys.stderr.isatty() and not args.quiet)
         try:
-            review = review_rows(header, rows, k, as_of, progress=tick,
-                                 decide_many=pool_decider(k, args.workers) if args.workers != 1 else None)
+            review = review_rows(header, rows, k, as_of, progress=tick, review_many=_pool(args.workers))
         finally:
             if bar is not None:
                 bar.close()

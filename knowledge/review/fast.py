@@ -49,7 +49,7 @@ from ..errors import ContrastAidError
 from ..tables import models as m
 from ..tables.conditions import STATIC_PREFIXES, compile_condition, facts_used
 from .columns import CaseBuilder, RowError
-from .summary import RESULT_COLUMNS, ChoicePart, choice_part, columns, plan_part, summarise_decision
+from .summary import RESULT_COLUMNS, ChoicePart, choice_part, columns, plan_part_of, summarise_decision
 
 #: the case fields that vary from order to order and are worked out per order
 CONTINUOUS = (("patient", "age_years"), ("patient", "weight_kg"), ("patient", "height_cm"),
@@ -71,21 +71,25 @@ def rejected(reason: str, k: Any, as_of: Any) -> dict[str, Any]:
     return out
 
 
+def rejection(exc: Exception, k: Any, as_of: Any) -> dict[str, Any]:
+    """The result columns of an order whose case the model or the engine refused with ``exc``."""
+    if isinstance(exc, RowError):
+        return rejected(str(exc), k, as_of)
+    field = getattr(exc, "field", None) or ""  # named by the error's field, never by parsing its text
+    column = ("planned_agent" if field == "agent" else "prior_reactions"
+              if field.startswith("patient.prior_reactions") else field if field in ("exam", "scheduled_at",
+                                                                                  "as_of") else None)
+    return rejected(exc.at("", rename={field: f"column {column}"}).message if column else exc.message, k, as_of)
+
+
 def outcome(case_dict: dict, k: Any, builder: CaseBuilder) -> tuple[dict[str, Any], Record | None]:
     """The review columns of one case dict (status ok/flagged, or rejected with the reason), and the
     :class:`Record` of its class when it was decided."""
     try:
         case = builder.validate(case_dict)
         d = decide(case, k)
-    except RowError as exc:
-        return rejected(str(exc), k, case_dict.get("as_of")), None
-    except ContrastAidError as exc:  # named by the error's field, never by parsing its text
-        field = exc.field or ""
-        column = ("planned_agent" if field == "agent" else "prior_reactions"
-                  if field.startswith("patient.prior_reactions") else field if field in ("exam", "scheduled_at",
-                                                                                      "as_of") else None)
-        msg = exc.at("", rename={field: f"column {column}"}).message if column else exc.message
-        return rejected(msg, k, case_dict.get("as_of")), None
+    except (RowError, ContrastAidError) as exc:
+        return rejection(exc, k, case_dict.get("as_of")), None
     return summarise_decision(d, case), Record.of(d, case)
 
 
@@ -121,7 +125,7 @@ def _with(obj: Any, changes: dict) -> Any:
     new = object.__new__(type(obj))
     _setattr(new, "__dict__", {**obj.__dict__, **changes})
     _setattr(new, "__pydantic_extra__", None)
-    _setattr(new, "__pydantic_fields_set__", set(obj.__pydantic_fields_set__))
+    _setattr(new, "__pydantic_fields_set__", obj.__pydantic_fields_set__)  # never changed on a frozen model
     _setattr(new, "__pydantic_private__", None)
     return new
 
@@ -145,18 +149,26 @@ class _Template:
     owners: tuple
 
 
-def _owners(case: m.Case, given: list[tuple[str, tuple]], cells: dict[str, dict]) -> tuple:
-    """How an order's case is rebuilt from the template's: every model on the way to a given numeric cell
-    (``cells``: the values already read, per column)."""
+def _shape(given: tuple[tuple[str, tuple], ...]) -> tuple:
+    """How an order's case is rebuilt from its template's, for the numeric cells ``given`` (column, path):
+    every model on the way to one of them, deepest first, as (path, [(field, column)], [(field, child path)])."""
     prefixes = {path[:i] for _, path in given for i in range(len(path))}
     out = []
     for prefix in sorted(prefixes, key=len, reverse=True):
+        fields = [(path[-1], name) for name, path in given if path[:-1] == prefix]
+        children = [(c[-1], c) for c in prefixes if len(c) == len(prefix) + 1 and c[:-1] == prefix]
+        out.append((prefix, fields, children))
+    return tuple(out)
+
+
+def _owners(case: m.Case, shape: tuple, cells: dict[str, dict]) -> tuple:
+    """The shape with the template's models and the columns' remembered values filled in."""
+    out = []
+    for prefix, fields, children in shape:
         obj = case
         for part in prefix:
             obj = getattr(obj, part)
-        fields = [(path[-1], name, cells[name]) for name, path in given if path[:-1] == prefix]
-        children = [(child[-1], child) for child in prefixes if len(child) == len(prefix) + 1 and child[:-1] == prefix]
-        out.append((prefix, obj, fields, children))
+        out.append((prefix, obj, [(field, name, cells[name]) for field, name in fields], children))
     return tuple(out)
 
 
@@ -175,23 +187,17 @@ class _Alerts(list):
         self.append((level, text))
 
 
+@dataclass(frozen=True)
+class _Doses:
+    doses: list  # (role, dose block) as plans.plan_doses gives them
+    content: tuple  # what the dose limits read of them
+
+
 class _Roles:
     """The decision's roles, as the dose stages read them (``decision.roles``)."""
 
     def __init__(self, roles: list) -> None:
         self.roles = roles
-
-
-@dataclass
-class _Renal:
-    """The renal block's cells of one order, as :func:`~knowledge.review.summary.plan_part` reads them."""
-
-    creatinine_required: bool
-    creatinine_stale: bool | None
-    creatinine_age_days: float | None
-    warnings: list[str]
-    dose_limits: Any
-    hydration_plan: Any
 
 
 def _tests(cond: m.Condition):
@@ -236,9 +242,10 @@ class FastReview:
         self.cells: dict[str, dict[str, Any]] = {name: {} for name, _ in self.varying}  # column -> text -> value
         self.catheter: dict[str, bool] = {}
         self.ids: dict[tuple, int] = {}
+        self.shapes: dict[tuple, tuple] = {}
         self.cells_of: dict[tuple, dict] = {}  # (class choice, plan part, exam time) -> cells
         self.tested: dict[tuple, tuple] = {}  # (tests, fact value) -> results
-        self.memo: dict[str, dict] = {n: {} for n in ("doses", "limits", "hydration", "premedication", "metformin")}
+        self.memo: dict[str, dict] = {n: {} for n in ("doses", "limits", "hydration", "premedication", "metformin", "times")}
         self.stats: Counter = Counter()
 
     # ------------------------------------------------------------------ the plain path
@@ -288,11 +295,12 @@ class FastReview:
         return _Exam(tuple(fixed), tuple((f, tuple(t.values())) for f, t in sorted(tests.items())))
 
     def _template(self, row: dict[str, str]) -> Any:
-        """The template of a row's class of cells (None: this row does not validate; try the next one)."""
+        """The template of a row's class of cells, or the row's cells when its case is refused (the next row of
+        the class may be fine: nothing is kept)."""
         try:
             case = self.builder.validate(self.case_dict(row))
-        except (RowError, ContrastAidError):
-            return None
+        except (RowError, ContrastAidError) as exc:
+            return rejection(exc, self.k, self.stamp)
         info = self.exam(case.exam)
         if info is None:
             return _NOT_FAST
@@ -301,8 +309,11 @@ class FastReview:
         key = (case.exam, case.agent, case.override_culprit, case.urgency, case.as_of, tuple(p.prior_reactions),
                p.takes_metformin, p.dialysis, p.acute_kidney_injury, tuple(_hashable(facts[n]) for n in info.fixed))
         doses_key = (p.iv_access, case.planned_volume_ml, case.planned_flow_ml_s, case.planned_concentration_mg_i_ml)
-        given = [(name, path) for name, path in self.varying if row.get(name, "")]
-        return _Template(case, info, self._id(key), self._id(doses_key), _owners(case, given, self.cells))
+        given = tuple((name, path) for name, path in self.varying if row.get(name, ""))
+        shape = self.shapes.get(given)
+        if shape is None:
+            shape = self.shapes[given] = _shape(given)
+        return _Template(case, info, self._id(key), self._id(doses_key), _owners(case, shape, self.cells))
 
     def _id(self, key: tuple) -> int:
         """A small number for a long key (keys are compared once, then hashed as numbers)."""
@@ -349,20 +360,24 @@ class FastReview:
             out.append(found)
         return tuple(out)
 
-    def prepare(self, row: dict[str, str]) -> _Order | None:
-        """The order's case and class key (None: the order goes the plain path)."""
+    def prepare(self, row: dict[str, str]) -> _Order | dict | None:
+        """The order's case and class key; or its cells when its case is refused (rejected as the plain path
+        rejects it); None: the order goes the plain path."""
         tkey = self._template_key(row)
         tpl = self.templates.get(tkey)
         if tpl is None:
             tpl = self._template(row)
-            if tpl is None:
-                return None
+            if isinstance(tpl, dict):
+                return tpl
             self.templates[tkey] = tpl
         if tpl is _NOT_FAST:
             return None
         case = self._case(tpl, row)
-        if case is None or case_time_problems(case):
+        if case is None:
             return None
+        problems = self._times(case)  # as CaseBuilder.validate checks them after the model
+        if problems:
+            return rejection(problems[0], self.k, self.stamp)
         alerts = _Alerts()
         try:
             egfr, _, category, _, _ = kidney_stage(case.patient, self.k.policy, alerts)
@@ -378,22 +393,21 @@ class FastReview:
         case, k = order.case, self.k
         p, pol = case.patient, k.policy
         exam = k.exams[rec.exam_id]
-        dkey, doses, iodinated = self._doses(order, rec, exam)
+        doses, iodinated = self._doses(order, rec, exam)
         catheter = self.catheter.get(exam.id)
         if catheter is None:
             catheter = self.catheter[exam.id] = plans.has_catheter_study(exam)
         _, agfr = plans.body_gfr(p, round(order.egfr, 1) if order.egfr is not None else None, pol)
         fresh, warnings = plans.creatinine_freshness(case, pol, iodinated or catheter)
-        limits = self._limits(dkey, doses, p, agfr, catheter) if iodinated or catheter else None
+        limits = self._limits(doses, p, agfr, catheter) if iodinated or catheter else None
         hydration = None
         if rec.hydration:
             hydration, more = self._hydration(case)
             warnings = warnings + list(more)
         premedication = self._premedication(case, rec) if rec.choice.premedication else rec.premedication
         metformin = self._metformin(case, rec) if rec.choice.metformin_hold else rec.metformin
-        renal = _Renal(fresh["creatinine_required"], fresh["creatinine_stale"], fresh["creatinine_age_days"],
-                       warnings, limits, hydration)
-        part = plan_part(renal, premedication, metformin)
+        part = plan_part_of(fresh["creatinine_required"], fresh["creatinine_stale"], fresh["creatinine_age_days"],
+                            warnings, limits, hydration, premedication, metformin)
         # the exam time reaches the cells only as "creatinine needed by" (summary.columns)
         key = (id(rec.choice), part, case.scheduled_at if part.creatinine_flag else None)
         cells = self.cells_of.get(key)
@@ -402,7 +416,7 @@ class FastReview:
         return cells
 
     # ------------------------------------------------------------------ plan stages, remembered by their inputs
-    def _doses(self, order: _Order, rec: Record, exam: m.Exam) -> tuple[tuple, list, bool]:
+    def _doses(self, order: _Order, rec: Record, exam: m.Exam) -> tuple[_Doses, bool]:
         """``plan_doses`` (and ``plan_agent_doses``, whose errors reject an order too): they read the chosen
         agents, the weight, whether the patient is a child, the IV access and the planned volume, flow and
         strength."""
@@ -414,17 +428,28 @@ class FastReview:
         if found is None:
             roles, doses, iodinated = plans.plan_doses(case, self.k, exam, _Roles(rec.roles))
             plan_agent_doses(case, self.k, exam, roles)
-            found = self.memo["doses"][key] = (doses, iodinated)
-        return key, found[0], found[1]
+            # what the dose limits read of the doses (plans._dose_limits): orders with other doses share them
+            content = tuple((role.renal_exposure, role.catheter_study, d.iodine_g, d.volume_ml) for role, d in doses)
+            found = self.memo["doses"][key] = (_Doses(doses, content), iodinated)
+        return found
 
-    def _limits(self, dkey: tuple, doses: list, p: m.Patient, agfr: float | None, catheter: bool) -> Any:
-        """The renal dose limits: they read the doses, dialysis, the absolute GFR and, for a catheter study
-        (Cigarroa), the weight and the creatinine."""
-        cigarroa = (p.weight_kg, p.creatinine) if catheter or any(role.catheter_study for role, _ in doses) else None
-        key = (dkey, p.dialysis, agfr, catheter, cigarroa)
+    def _limits(self, doses: _Doses, p: m.Patient, agfr: float | None, catheter: bool) -> Any:
+        """The renal dose limits: they read the doses' iodine, volumes and roles, dialysis, the absolute GFR and,
+        for a catheter study (Cigarroa), the weight and the creatinine."""
+        cigarroa = (p.weight_kg, p.creatinine) if catheter or any(c[1] for c in doses.content) else None
+        key = (doses.content, p.dialysis, agfr, catheter, cigarroa)
         found = self.memo["limits"].get(key)
         if found is None:
-            found = self.memo["limits"][key] = plans._dose_limits(doses, p, self.k.policy, agfr, catheter)
+            found = self.memo["limits"][key] = plans._dose_limits(doses.doses, p, self.k.policy, agfr, catheter)
+        return found
+
+    def _times(self, case: m.Case) -> list:
+        """``case_time_problems``: it reads as_of, the exam time and the creatinine's date."""
+        cr = case.patient.creatinine
+        key = (case.as_of, case.scheduled_at, cr.measured_on if cr is not None else None)
+        found = self.memo["times"].get(key)
+        if found is None:
+            found = self.memo["times"][key] = case_time_problems(case)
         return found
 
     def _hydration(self, case: m.Case) -> tuple[Any, tuple[str, ...]]:
@@ -461,6 +486,8 @@ class FastReview:
             order = self.prepare(row)
         if order is None:
             return self.plain(row)
+        if isinstance(order, dict):
+            return order
         rec = self.records.get(order.key)
         if rec is None:
             self.stats["decided"] += 1
@@ -475,37 +502,12 @@ class FastReview:
         self.stats["fast"] += 1
         return result
 
-    def review(self, rows: list[dict[str, str]], progress: Callable[[int], None] | None = None,
-               decide_many: Callable[[list[dict]], list] | None = None) -> list[dict[str, Any]]:
-        """The cells of every distinct row, in order. ``decide_many`` (e.g. a process pool) decides the first
-        order of every class, and the orders the fast path does not cover, as one batch."""
-        if decide_many is not None:
-            return self._batch(rows, decide_many)
+    def review(self, rows: list[dict[str, str]], progress: Callable[[int], None] | None = None) -> list[dict[str, Any]]:
+        """The cells of every distinct row, in order; ``progress(n)`` after every hundredth of them."""
         out = []
         step = max(1, len(rows) // 100)
         for i, row in enumerate(rows, start=1):
             out.append(self.one(row))
             if progress and i % step == 0:
                 progress(step)
-        return out
-
-    def _batch(self, rows: list[dict[str, str]], decide_many: Callable[[list[dict]], list]) -> list[dict[str, Any]]:
-        orders = [self.prepare(row) for row in rows]
-        first: dict[tuple, int] = {}
-        jobs = []
-        for i, order in enumerate(orders):
-            if order is None or order.key not in self.records and order.key not in first:
-                if order is not None:
-                    first[order.key] = i
-                jobs.append(i)
-        out: list[Any] = [None] * len(rows)
-        decided = decide_many([self.case_dict(rows[i]) for i in jobs])
-        self.stats["decided"] += len(jobs)
-        for i, (result, rec) in zip(jobs, decided):
-            out[i] = result
-            if orders[i] is not None and rec is not None:
-                self.records[orders[i].key] = rec
-        for i, order in enumerate(orders):
-            if out[i] is None:
-                out[i] = self.one(rows[i], order)
         return out

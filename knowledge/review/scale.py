@@ -8,51 +8,72 @@ from __future__ import annotations
 
 import datetime as dt
 import multiprocessing
+from collections import Counter
 import os
 import tempfile
 from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 from typing import Any, Callable
 
-from .columns import CaseBuilder
-from .fast import outcome
+from .fast import FastReview
 from .worklist import RESULT_COLUMNS, Review, WorklistError, frame_rows, review_rows, table_of
 
-#: below this many distinct cases a pool costs more than it saves (measured: benchmarks/bench_review.py)
-POOL_MIN_CASES = 4000
+#: below this many distinct rows a second process costs more than it saves (measured: benchmarks/bench_review.py)
+POOL_MIN_ROWS = 4000
 
 
 class _Worker:
-    """The knowledge a pool worker process decides with (inherited by fork, one per process)."""
+    """What a worker process reviews (inherited by fork: the reviewer as it was, and the rows)."""
 
-    knowledge: Any = None
-    builder: CaseBuilder | None = None
-
-
-def _init(k: Any) -> None:
-    _Worker.knowledge, _Worker.builder = k, CaseBuilder()
+    fast: FastReview | None = None
+    rows: list[dict] = []
 
 
-def _chunk(cases: list[dict]) -> list[tuple]:
-    return [outcome(c, _Worker.knowledge, _Worker.builder) for c in cases]
+def _review_part(bounds: tuple[int, int]) -> tuple[list[dict], list[int], Counter]:
+    """Review rows[start:stop] in a worker; the cells come back once per distinct result, with an index, and
+    what the worker counted (rows decided in full, rows done the fast way)."""
+    start, stop = bounds
+    assert _Worker.fast is not None
+    before = Counter(_Worker.fast.stats)
+    results = _Worker.fast.review(_Worker.rows[start:stop])
+    index: dict[int, int] = {}
+    distinct: list[dict] = []
+    refs = []
+    for r in results:  # orders of one class with the same plans share one result object
+        i = index.get(id(r))
+        if i is None:
+            i = index[id(r)] = len(distinct)
+            distinct.append(r)
+        refs.append(i)
+    return distinct, refs, _Worker.fast.stats - before
 
 
-def pool_decider(k: Any, workers: int | None = None, chunk: int = 1000,
-                 min_cases: int = POOL_MIN_CASES) -> Callable[[list[dict]], list[dict]]:
-    """A ``decide_many`` for :func:`review_rows` that spreads the cases it must decide in full (the first order
-    of every class) over worker processes; each gives :func:`knowledge.review.fast.outcome`."""
+def pool_reviewer(workers: int | None = None, min_rows: int = POOL_MIN_ROWS
+                  ) -> Callable[[FastReview, list[dict]], list[dict]]:
+    """A ``review_many`` for :func:`review_rows`: the distinct rows split into ``workers`` parts (default: the
+    cores, at most 2), the first reviewed in this process while forked worker processes review the others, each
+    with the reviewer as it was when forked. Each part decides the first order of its classes itself."""
     n = workers or min(2, os.cpu_count() or 1)
 
-    def decide_many(cases: list[dict]) -> list[tuple]:
-        if n < 2 or len(cases) < min_cases or "fork" not in multiprocessing.get_all_start_methods():
-            builder = CaseBuilder()
-            return [outcome(c, k, builder) for c in cases]
-        ctx = multiprocessing.get_context("fork")  # workers inherit the loaded knowledge
-        parts = [cases[i:i + chunk] for i in range(0, len(cases), chunk)]
-        with ProcessPoolExecutor(n, mp_context=ctx, initializer=_init, initargs=(k,)) as ex:
-            return [r for part in ex.map(_chunk, parts) for r in part]
+    def review_many(fast: FastReview, rows: list[dict]) -> list[dict]:
+        if n < 2 or len(rows) < min_rows or "fork" not in multiprocessing.get_all_start_methods():
+            return fast.review(rows)
+        size = -(-len(rows) // n)
+        bounds = [(i, min(i + size, len(rows))) for i in range(0, len(rows), size)]
+        _Worker.fast, _Worker.rows = fast, rows
+        try:
+            with ProcessPoolExecutor(len(bounds) - 1, mp_context=multiprocessing.get_context("fork")) as ex:
+                parts = [ex.submit(_review_part, b) for b in bounds[1:]]
+                out = fast.review(rows[bounds[0][0]:bounds[0][1]])
+                for part in parts:
+                    distinct, refs, counted = part.result()
+                    out += [distinct[i] for i in refs]
+                    fast.stats.update(counted)
+        finally:
+            _Worker.fast, _Worker.rows = None, []
+        return out
 
-    return decide_many
+    return review_many
 
 
 # ----------------------------------------------------------------------------- Dask

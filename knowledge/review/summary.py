@@ -118,23 +118,29 @@ def choice_part(d: m.Decision, agent: str | None) -> ChoicePart:
 
 
 def plan_part(renal: Any, premedication: Any, metformin: Any) -> PlanPart:
-    """The part of the review columns the plans give: from a decision's ``renal``, ``premedication`` and
-    ``metformin`` blocks (or objects with the same attributes)."""
+    """The part of the review columns the plans give, from a decision's ``renal``, ``premedication`` and
+    ``metformin`` blocks."""
     r = renal
+    return plan_part_of(r.creatinine_required, r.creatinine_stale, r.creatinine_age_days, r.warnings, r.dose_limits,
+                        r.hydration_plan, premedication, metformin)
+
+
+def plan_part_of(required: bool, stale: bool | None, age_days: float | None, warnings: list[str], limits: Any,
+                 hydration: Any, premedication: Any, metformin: Any) -> PlanPart:
+    """:func:`plan_part` from the renal block's fields (creatinine required, stale, its age; the renal warnings,
+    dose limits and hydration plan) and the premedication and metformin blocks."""
     flag = None
-    if r.creatinine_required and (r.creatinine_stale or r.creatinine_age_days is None):
+    if required and (stale or age_days is None):
         flag = "creatinine needed"
-    elif r.creatinine_stale:
+    elif stale:
         flag = "creatinine stale"
-    limits = r.dose_limits
     exceeded = limits and (limits.iodine_g_per_gfr_exceeded or limits.cigarroa_exceeded)  # not "not worked out"
-    plan = r.hydration_plan
     return PlanPart(
-        creatinine_flag=flag, warnings=tuple(r.warnings) + tuple(premedication.warnings),
+        creatinine_flag=flag, warnings=tuple(warnings) + tuple(premedication.warnings),
         limit_messages=tuple(limits.messages) if exceeded else (),
         premedication_regimen=premedication.regimen,
         premedication_start=premedication.schedule[0].at if premedication.schedule else None,
-        hydration=(plan.rate_ml_h, plan.start_at) if plan and plan.start_at else None,
+        hydration=(hydration.rate_ml_h, hydration.start_at) if hydration and hydration.start_at else None,
         metformin_hold_from=metformin.hold_from, metformin_recheck_at=metformin.recheck_at)
 
 

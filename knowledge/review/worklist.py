@@ -9,8 +9,10 @@ CSV/XLSX that a spreadsheet would run as a formula are prefixed with ``'``.
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import datetime as dt
+import gc
 import io
 import operator
 import os
@@ -195,26 +197,42 @@ def _distinct(rows: list[dict[str, str]], read: list[str]) -> tuple[list[tuple |
     return keyed, unique
 
 
+@contextlib.contextmanager
+def _no_cycle_collection():
+    """Pause the cycle collector: a review makes many small objects and no cycles, and the collector would
+    otherwise walk every row made so far, again and again (measured: benchmarks/bench_review.py)."""
+    collecting = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if collecting:
+            gc.enable()
+
+
 def review_rows(header: list[str], rows: list[dict[str, str]], k: Any, as_of: dt.datetime,
                 progress: Callable[[int], None] | None = None,
-                decide_many: Callable[[list[dict]], list] | None = None) -> Review:
+                review_many: Callable[[FastReview, list[dict]], list[dict]] | None = None) -> Review:
     """Review every row in order. ``as_of`` is the list's "now" (the caller reads any clock).
 
     Identical rows are reviewed once; distinct ones by :class:`knowledge.review.fast.FastReview` (one full
-    decision per class of orders). ``decide_many`` (optional) decides a batch of case dicts, returning
-    :func:`knowledge.review.fast.outcome` for each, e.g. in a process pool (``scale.pool_decider``)."""
+    decision per class of orders). ``review_many`` (optional) reviews the distinct rows with that reviewer in
+    its own way, e.g. spread over processes (``scale.pool_reviewer``); it gives their cells in order."""
     builder = CaseBuilder()
     used, ignored = builder.known(header)
     read = [c for c in used if c != "order_id"]
     keyed, unique = _distinct(rows, read)
     keys = list(unique)
     fast = FastReview(k, builder, read, as_of)
-    results = dict(zip(keys, fast.review([unique[q] for q in keys], progress, decide_many)))
-    ticked = 0 if decide_many is not None else len(keys) // max(1, len(keys) // 100) * max(1, len(keys) // 100)
-    if progress and len(rows) > ticked:  # the rest, repeated rows included, so the ticks add up to the row count
-        progress(len(rows) - ticked)
-    empty = rejected("column exam: empty; allowed: an exam id or a local procedure code", k, as_of.isoformat())
-    out_rows = [{**row, **(results[key] if key is not None else empty)} for row, key in zip(rows, keyed)]
+    distinct = [unique[q] for q in keys]
+    with _no_cycle_collection():
+        results = dict(zip(keys, review_many(fast, distinct) if review_many else fast.review(distinct, progress)))
+        step = max(1, len(keys) // 100)
+        ticked = 0 if review_many is not None else len(keys) // step * step
+        if progress and len(rows) > ticked:  # the rest, repeated rows included, so the ticks add up to the rows
+            progress(len(rows) - ticked)
+        empty = rejected("column exam: empty; allowed: an exam id or a local procedure code", k, as_of.isoformat())
+        out_rows = [{**row, **(results[key] if key is not None else empty)} for row, key in zip(rows, keyed)]
     return Review(header=header, rows=out_rows, ignored_columns=ignored, unique_cases=len(keys),
                   decided=fast.stats["decided"])
 
