@@ -285,3 +285,29 @@ def test_orders_that_differ_only_where_one_plan_stage_looks():
     assert by["C12"]["alerts"] != by["C40"]["alerts"] and "Iodine 20 g" in by["C40"]["alerts"]  # a child's dose
     assert "metformin hold" in by["M09-72"]["flags"] and by["M09-72"]["metformin_hold_from"] == "2026-12-02 09:00"
     assert review.decided < len(rows) / 2
+
+
+# ----------------------------------------------------------------------------- speed changes in the engine
+def test_the_fast_constructor_builds_what_model_construct_builds():
+    make = m.constructor(m.Option)
+    reason = m.Reason(rule="r", text="t", verdict=None, source="common practice", certainty=m.Certainty.common_practice)
+    given = dict(agent="iohexol", name="Iohexol", agent_class=m.AgentClass.positive, family=m.Family.iodinated,
+                 osmolality_class=m.OsmolalityClass.low, verdict=m.Verdict.suitable, rank=1, chosen=True,
+                 reasons=[reason], actions=["Warm to 37 °C"])
+    for values in (given, {**given, "stocked": False}, {"agent": "x"}):
+        fast, slow = make(**values), m.Option.model_construct(**values)
+        assert fast.__dict__ == slow.__dict__ and list(fast.__dict__) == list(slow.__dict__)
+        assert fast.model_fields_set == slow.model_fields_set and repr(fast) == repr(slow) and fast == slow
+    # a model with a default factory (Case.patient) or private attributes keeps pydantic's own
+    case = m.constructor(m.Case)(exam="ct-chest")
+    assert case == m.Case.model_construct(exam="ct-chest") and case.patient is not m.constructor(m.Case)().patient
+
+
+def test_the_departments_formulary_index_agrees_with_the_overlay():
+    from knowledge.decision.department import formulary
+
+    k = load_knowledge(policy=OVERLAY)
+    stock = formulary(k.overlay)
+    for agent in k.agents:
+        assert (agent in stock) is k.overlay.stocked(agent) and stock.get(agent) is k.overlay.item(agent)
+    assert formulary(load_knowledge().overlay or k.overlay.model_copy(update={"formulary": None})) is None

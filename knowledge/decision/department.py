@@ -22,6 +22,7 @@ from typing import Any
 from ..tables import models as m
 
 NOT_STOCKED = "Not stocked here"
+_reason = m.constructor(m.Reason)  # Reason.model_construct, without its per-call work
 
 
 def resolve_exam(code: str, k: Any) -> str:
@@ -40,10 +41,19 @@ def rank_options(k: Any, exam: m.Exam, role: m.ExamRole, scored: list) -> list:
         scored.sort(key=lambda s: s.order)
         return scored
     preferred = ov.preferred_for(exam.id, role.route)
+    stock = formulary(ov)
     # the engine's order is (verdict, its tie-breaks…, exam preference): the department's keys go
     # just before the exam preference
-    scored.sort(key=lambda s: (*s.order[:-1], not ov.stocked(s.agent.id), s.agent.id != preferred, s.order[-1]))
+    scored.sort(key=lambda s: (*s.order[:-1], not (stock is None or s.agent.id in stock), s.agent.id != preferred,
+                               s.order[-1]))
     return scored
+
+
+def formulary(ov: Any) -> dict[str, Any] | None:
+    """The overlay's formulary by agent id, as ``Overlay.stocked`` and ``Overlay.item`` read it (None: no
+    formulary, every agent counts as stocked). Built once per stage: the overlay's own index is a private
+    attribute, slow to reach once per option."""
+    return None if ov.formulary is None else {f.agent: f for f in ov.formulary}
 
 
 def stocked_choice(k: Any, case: m.Case, role: m.ExamRole, scored: list, chosen_id: str | None) -> str | None:
@@ -55,7 +65,8 @@ def stocked_choice(k: Any, case: m.Case, role: m.ExamRole, scored: list, chosen_
         return chosen_id
     usual = set(role.agents)
     limit = m.Verdict.suitable_with_precautions.severity
-    best = next((s for s in scored if ov.stocked(s.agent.id) and s.agent.id in usual
+    stock = formulary(ov)
+    best = next((s for s in scored if s.agent.id in stock and s.agent.id in usual
                  and s.verdict.severity <= limit and not getattr(s, "culprit", False)), None)
     return best.agent.id if best is not None else chosen_id
 
@@ -73,17 +84,18 @@ def department_stage(case: m.Case, k: Any, decision: m.Decision) -> m.Decision:
     cautions = list(decision.cautions)
     not_stocked = f"{NOT_STOCKED} ({k.policy.name})"
     source = f"local policy {k.policy.id}"
+    stock = formulary(ov)
     for rd in decision.roles:
         options = rd.options
         for o in options:
             # The options were built by this decide call and are not shared yet, so they are marked in
             # place (a copy of each cost a fifth of decide's time: benchmarks/bench_review.py).
-            stocked = ov.stocked(o.agent) if ov.formulary is not None else None
-            item = ov.item(o.agent)
+            stocked = o.agent in stock if stock is not None else None
+            item = stock.get(o.agent) if stock else None
             label = item.label if item else None
             o.__dict__.update(stocked=stocked, local_label=label)
             if stocked is False:
-                o.reasons.append(m.Reason.model_construct(
+                o.reasons.append(_reason(
                     rule="department-formulary", text=not_stocked, verdict=None, source=source,
                     certainty=m.Certainty.common_practice))
             elif label:

@@ -250,6 +250,7 @@ class _Scored:
     alerts: tuple = ()
 
 
+_option = m.constructor(m.Option)  # Option.model_construct, without its per-call work (13 options a role)
 #: rules whose contraindication the case's ``override_culprit`` may set aside (and nothing else may)
 CULPRIT_RULES = frozenset({"reaction-culprit-agent", "reaction-culprit-agent-moderate-severe"})
 _CULPRIT_SOURCE = ("Consensus of the American College of Radiology and the American Academy of Allergy, Asthma "
@@ -483,7 +484,7 @@ def score_role(case: m.Case, k: Knowledge, exam: m.Exam, index: int, role: m.Exa
             for level, text, rule, source in s.alerts:
                 raised.alert(level, text, rule, source)
         a = s.agent
-        options.append(m.Option.model_construct(
+        options.append(_option(
             agent=a.id, name=a.name, agent_class=a.agent_class, family=a.family,
             osmolality_class=a.osmolality_class, verdict=s.verdict, rank=rank, chosen=chosen,
             reasons=s.reasons, actions=s.actions))

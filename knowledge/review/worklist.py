@@ -273,11 +273,14 @@ def summary_lines(review: Review, before: dt.datetime | None = None) -> list[str
 
 # ----------------------------------------------------------------------------- writing
 def table_cells(review: Review, protect: bool) -> tuple[list[str], list[list[Any]]]:
-    """(columns, rows of cells) of the reviewed list; ``protect``: cells a spreadsheet would run are text."""
+    """(columns, rows of cells) of the reviewed list; ``protect``: cells a spreadsheet would run are text
+    (:func:`safe_cell`)."""
     cols = review.columns
-    if protect:
-        return cols, [[safe_cell(r.get(c, "")) for c in cols] for r in review.rows]
-    return cols, [[r.get(c, "") for c in cols] for r in review.rows]
+    if not protect:
+        return cols, [[r.get(c, "") for c in cols] for r in review.rows]
+    start = _FORMULA_START
+    return cols, [[("'" + v if v.startswith(start) else v) if type(v) is str else safe_cell(v)
+                   for v in (r.get(c, "") for c in cols)] for r in review.rows]
 
 
 def table_of(review: Review, protect: bool) -> Any:

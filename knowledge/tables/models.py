@@ -1040,3 +1040,36 @@ class Decision(Strict):
     policy_version: str | None = Field(
         None, description="Hash of the policy file (of an overlay and its base profile), to reproduce the decision")
     on_call: str | None = Field(None, description="The department's on-call radiologist contact line, if any")
+
+
+# --------------------------------------------------------------------------------------------------
+# Building trusted records fast
+# --------------------------------------------------------------------------------------------------
+_CONSTANT_DEFAULTS = (type(None), bool, int, float, str, Enum)
+
+
+def constructor(model: type[BaseModel]) -> Any:
+    """``model.model_construct`` for trusted values, without its per-call walk over every field's aliases and
+    defaults: the same object (the given fields and the defaults, in field order; the given names as the fields
+    set). Only for a model without aliases, private attributes or post-init whose defaults are constants; any
+    other model gets ``model.model_construct`` itself. The engine builds one option per agent and role with it."""
+    fields = model.model_fields
+    plain = (not model.__private_attributes__ and not model.__pydantic_post_init__
+             and model.model_config.get("extra") != "allow"
+             and all(f.alias is None and f.validation_alias is None and f.default_factory is None
+                     and (f.is_required() or isinstance(f.default, _CONSTANT_DEFAULTS)) for f in fields.values()))
+    if not plain:
+        return model.model_construct
+    order = tuple(fields)
+    defaults = {name: f.default for name, f in fields.items() if not f.is_required()}
+    new, put = object.__new__, object.__setattr__
+
+    def make(**values: Any) -> BaseModel:
+        obj = new(model)
+        put(obj, "__dict__", {n: values[n] if n in values else defaults[n] for n in order if n in values or n in defaults})
+        put(obj, "__pydantic_fields_set__", {n for n in values if n in fields})
+        put(obj, "__pydantic_extra__", None)
+        put(obj, "__pydantic_private__", None)
+        return obj
+
+    return make
