@@ -1,19 +1,23 @@
 """Benchmark of worklist review (issue 12). Prints figures; asserts nothing.
 
 Targets: a 20,000-row list reviewed at >= 5,000 orders/s including process start (the command
-``contrast-aid review`` end to end), and >= 20,000 orders/s in-process for a 100,000-row list. Each figure
-is printed beside a plain per-row loop over ``decide`` on the same rows (the ratio is review / loop).
+``contrast-aid review`` end to end), and >= 20,000 orders/s in-process for a 100,000-row list
+(``review_rows``). Each figure is printed beside a plain per-row loop over ``decide`` on the same rows (the
+ratio is review / loop).
 
 Two kinds of list (benchmarks/worklist_gen.py, invented orders):
 - "realistic": every order a different patient (ages, weights, creatinine, sample dates and exam times
-  all drawn), so almost every row is a distinct case;
+  all drawn), so almost every row is a distinct case; the review decides the first order of each class in
+  full and works out the others' numbers per order (knowledge/review/fast.py);
 - "repeating": the same number of rows drawn from 2,000 distinct cases (an audit of a standard protocol,
-  or a list exported with repeated rows), where deciding identical cases once pays.
+  or a list exported with repeated rows), where identical rows are reviewed once.
 
-The machine is shared, so beside each wall-clock rate the benchmark prints orders per CPU-second (this
-process and its workers): the rate an otherwise idle core would give.
+The machine is shared, so every figure is printed with the load average (1 min) when it was taken, and
+beside each wall-clock rate the orders per CPU-second (this process and its workers): the rate an otherwise
+idle core would give. ``workers=2`` splits the distinct rows over two processes: it pays only when a second
+core is free.
 
-Run: python benchmarks/bench_review.py [--quick]
+Run: python benchmarks/bench_review.py [--quick] [--repeat N]
 """
 
 from __future__ import annotations
@@ -43,6 +47,10 @@ OVERLAY = ROOT / "examples" / "department-overlay.yaml"
 AS_OF = dt.datetime(2026, 12, 1, 16, 0)
 
 
+def load() -> str:
+    return f"load {os.getloadavg()[0]:.1f}"
+
+
 def repeating(n: int, distinct: int = 2000, seed: int = 7) -> list[list[str]]:
     pool = make_rows(distinct, seed=seed)
     rnd = random.Random(seed)
@@ -69,14 +77,14 @@ def plain_loop_rate(rows: list[list[str]], k, limit: int) -> tuple[float, float]
     return len(sample) / (time.perf_counter() - t), len(sample) / (time.process_time() - c)
 
 
-def in_process(rows: list[list[str]], k, workers: int) -> tuple[float, float, int]:
-    """(orders/s wall, orders per CPU-second of this process and its workers, distinct cases)."""
+def in_process(rows: list[list[str]], k, workers: int) -> tuple[float, float, wl.Review]:
+    """(orders/s wall, orders per CPU-second of this process and its workers, the review)."""
     dict_rows = [dict(zip(HEADER, r)) for r in rows]
     many = pool_reviewer(workers, min_rows=1) if workers > 1 else None
     t, c, ch = time.perf_counter(), time.process_time(), _children_cpu()
     review = wl.review_rows(HEADER, dict_rows, k, AS_OF, review_many=many)
     cpu = time.process_time() - c + _children_cpu() - ch
-    return len(rows) / (time.perf_counter() - t), len(rows) / cpu, review.unique_cases
+    return len(rows) / (time.perf_counter() - t), len(rows) / cpu, review
 
 
 def _children_cpu() -> float:
@@ -101,25 +109,33 @@ def end_to_end(rows: list[list[str]], workers: int) -> tuple[float, float]:
     return len(rows) / elapsed, len(rows) / cpu
 
 
-def main() -> None:
-    quick = "--quick" in sys.argv
-    n_cli, n_big = (4000, 10000) if quick else (20000, 100000)
-    k = load_knowledge(policy=OVERLAY)
-    print(f"cores: {os.cpu_count()}; load average {os.getloadavg()[0]:.1f} (the machine is shared: figures vary)")
-    for kind, make in (("realistic", make_rows), ("repeating", repeating)):
-        small, big = make(n_cli), make(n_big)
-        loop, loop_cpu = plain_loop_rate(big, k, 3000)
-        print(f"\n{kind} list; plain per-row loop over decide: {loop:,.0f} orders/s "
-              f"({loop_cpu:,.0f} per CPU-second)")
+def bench_kind(kind: str, make, k, n_cli: int, n_big: int, repeat: int) -> None:
+    small, big = make(n_cli), make(n_big)
+    loop, loop_cpu = plain_loop_rate(big, k, 3000)
+    print(f"\n{kind} list; plain per-row loop over decide: {loop:,.0f} orders/s ({loop_cpu:,.0f} per CPU-second; "
+          f"{load()})")
+    for _ in range(repeat):
         for workers in (1, 2):
             rate, cpu = end_to_end(small, workers)
             print(f"  {n_cli:,} rows, `contrast-aid review` incl. process start, workers={workers}: "
-                  f"{rate:,.0f} orders/s (target 5,000; x{rate / loop:.2f} the loop; {cpu:,.0f} per CPU-second)")
+                  f"{rate:,.0f} orders/s (target 5,000; x{rate / loop:.1f} the loop; {cpu:,.0f} per CPU-second; "
+                  f"{load()})")
+    for _ in range(repeat):
         for workers in (1, 2):
-            rate, cpu, unique = in_process(big, k, workers)
-            print(f"  {n_big:,} rows in-process, workers={workers}: {rate:,.0f} orders/s "
-                  f"(target 20,000; x{rate / loop:.2f} the loop; {cpu:,.0f} per CPU-second; "
-                  f"{unique:,} distinct cases)")
+            rate, cpu, review = in_process(big, k, workers)
+            print(f"  {n_big:,} rows in-process, workers={workers}: {rate:,.0f} orders/s (target 20,000; "
+                  f"x{rate / loop:.1f} the loop; {cpu:,.0f} per CPU-second; {review.unique_cases:,} distinct rows, "
+                  f"{review.decided:,} decided in full; {load()})")
+
+
+def main() -> None:
+    quick = "--quick" in sys.argv
+    repeat = int(sys.argv[sys.argv.index("--repeat") + 1]) if "--repeat" in sys.argv else 1
+    n_cli, n_big = (4000, 10000) if quick else (20000, 100000)
+    k = load_knowledge(policy=OVERLAY)
+    print(f"cores: {os.cpu_count()}; {load()} (the machine is shared: figures vary)")
+    for kind, make in (("realistic", make_rows), ("repeating", repeating)):
+        bench_kind(kind, make, k, n_cli, n_big, repeat)
 
 
 if __name__ == "__main__":

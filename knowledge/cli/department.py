@@ -268,7 +268,7 @@ def add_department_parsers(sub: Any, parser_class: type) -> None:
     p.add_argument("--engine", choices=("local", "dask"), default="local")
     p.add_argument("--scheduler", metavar="ADDRESS", help="Dask scheduler address, with --engine dask")
     p.add_argument("--workers", type=int, default=1, metavar="N",
-                   help="worker processes for the distinct cases of a long list (default 1: in this process; "
-                        "see benchmarks/bench_review.py for when 2 pays)")
+                   help="processes to split the distinct rows of a long list over (default 1: this process "
+                        "only; 2 pays when a second core is free: see benchmarks/bench_review.py)")
     p.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=cmd_review)

@@ -25,9 +25,13 @@ agree in what the rules read (exam, planned agent, flags, reactions, kidney band
    exactly the inputs they read (the doses: chosen agents, weight, child or not, IV access and planned
    volume, flow and strength; the schedule: exam time, as_of, urgency, child or not).
 
-Any error on the way sends the order to the plain path, which rejects it with the engine's own words. The
-cells of both paths come from :func:`knowledge.review.summary.columns`; ``tests/test_review_fast.py`` checks
-the two paths agree, cell by cell, on generated lists and on the scenario bank.
+An order whose cells the model refuses, or whose date-times contradict its as_of, is rejected with the
+words the plain path gives (the same error, mapped by :func:`rejection`); an error in any other stage sends
+the order to the plain path, which rejects it with the engine's own words. The cells of both paths come from
+:func:`knowledge.review.summary.columns`; ``tests/test_review_fast.py`` checks the two paths agree, cell by
+cell, on generated lists, on the scenario bank as rows and on neighbours that differ only where one stage
+looks. A new fact worked out from a numeric cell belongs in :data:`DERIVED_FACTS` (a test fails until it is);
+a plan stage that reads a new field of the case must be remembered by it here too.
 """
 
 from __future__ import annotations
