@@ -194,7 +194,9 @@ class _Alerts(list):
 @dataclass(frozen=True)
 class _Doses:
     doses: list  # (role, dose block) as plans.plan_doses gives them
-    content: tuple  # what the dose limits read of them
+    content: int  # what the dose limits read of them (each role's renal exposure and catheter study, each
+    # dose's iodine and volume), numbered by FastReview._id
+    catheter: bool  # a dose of a catheter study (the limits then read weight and creatinine: Cigarroa)
 
 
 class _Roles:
@@ -202,6 +204,14 @@ class _Roles:
 
     def __init__(self, roles: list) -> None:
         self.roles = roles
+
+
+def _getter(names: list[str]) -> Callable[[dict], tuple]:
+    """The values of ``names`` in a row, as a tuple (whatever their number)."""
+    if len(names) == 1:
+        get = operator.itemgetter(names[0])
+        return lambda row: (get(row),)
+    return operator.itemgetter(*names) if names else (lambda row: ())
 
 
 def _tests(cond: m.Condition):
@@ -236,9 +246,9 @@ class FastReview:
         self.varying = [(paths[p], p) for p in CONTINUOUS if p in paths]
         varying = {name for name, _ in self.varying}
         fixed = [c for c in self.read if c not in varying]
-        self._fixed = operator.itemgetter(*fixed) if len(fixed) > 1 else None
         self._fixed_names = fixed
         self._varying_names = [name for name, _ in self.varying]
+        self._fixed, self._varying = _getter(fixed), _getter(self._varying_names)
         self.fixed_facts = frozenset(case_facts(m.Case(exam="-"), None, None)) - DERIVED_FACTS
         self.templates: dict[tuple, Any] = {}
         self.records: dict[tuple, Record] = {}
@@ -264,14 +274,11 @@ class FastReview:
 
     # ------------------------------------------------------------------ templates
     def _template_key(self, row: dict[str, str]) -> tuple:
-        if self._fixed is not None:
-            try:
-                fixed = self._fixed(row)
-            except KeyError:  # a row without some columns (built by hand, not read from a file)
-                fixed = tuple(row.get(c, "") for c in self._fixed_names)
-        else:
-            fixed = tuple(row.get(c, "") for c in self._fixed_names)
-        return fixed, tuple(not row.get(c, "") for c in self._varying_names)
+        try:
+            return self._fixed(row), tuple(map(operator.not_, self._varying(row)))
+        except KeyError:  # a row without some columns (built by hand, not read from a file)
+            return (tuple(row.get(c, "") for c in self._fixed_names),
+                    tuple(not row.get(c, "") for c in self._varying_names))
 
     def exam(self, exam_id: str) -> _Exam | None:
         """The facts the exam's rules test (None: a fact of neither kind, so the exam is not sped up)."""
@@ -427,20 +434,21 @@ class FastReview:
         case = order.case
         p = case.patient
         child = p.age_years is not None and p.age_years < paediatric.ADULT_AGE_YEARS  # as plans.plan_doses
-        key = (rec.chosen, child, p.weight_kg, order.tpl.doses_key)
+        key = (self._id(rec.chosen), child, p.weight_kg, order.tpl.doses_key)
         found = self.memo["doses"].get(key)
         if found is None:
             roles, doses, iodinated = plans.plan_doses(case, self.k, exam, _Roles(rec.roles))
             plan_agent_doses(case, self.k, exam, roles)
             # what the dose limits read of the doses (plans._dose_limits): orders with other doses share them
             content = tuple((role.renal_exposure, role.catheter_study, d.iodine_g, d.volume_ml) for role, d in doses)
-            found = self.memo["doses"][key] = (_Doses(doses, content), iodinated)
+            catheter_dose = any(c[1] for c in content)
+            found = self.memo["doses"][key] = (_Doses(doses, self._id(content), catheter_dose), iodinated)
         return found
 
     def _limits(self, doses: _Doses, p: m.Patient, agfr: float | None, catheter: bool) -> Any:
         """The renal dose limits: they read the doses' iodine, volumes and roles, dialysis, the absolute GFR and,
         for a catheter study (Cigarroa), the weight and the creatinine."""
-        cigarroa = (p.weight_kg, p.creatinine) if catheter or any(c[1] for c in doses.content) else None
+        cigarroa = (p.weight_kg, p.creatinine) if catheter or doses.catheter else None
         key = (doses.content, p.dialysis, agfr, catheter, cigarroa)
         found = self.memo["limits"].get(key)
         if found is None:
