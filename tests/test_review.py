@@ -232,6 +232,24 @@ def test_process_pool_gives_the_same_rows(workers):
     assert plain.unique_cases < len(rows)  # identical cases decided once
 
 
+def test_workers_2_writes_the_same_file(tmp_path, capsys, monkeypatch):
+    from knowledge.review import scale
+
+    header, rows = wl.read_worklist(SAMPLE)
+    many = [{**r, "order_id": f"{r['order_id']}-{i}", "age_years": str(30 + i % 50) if r["age_years"] else ""}
+            for i, r in enumerate(rows * 40)]
+    src = write_csv(tmp_path / "many.csv", header, [[r[h] for h in header] for r in many])
+    monkeypatch.setattr(scale, "POOL_MIN_ROWS", 1)
+    outs = []
+    for workers in ("1", "2"):
+        out = tmp_path / f"out-{workers}.csv"
+        code, stdout, _ = run(["review", str(src), "-o", str(out), "--policy", str(OVERLAY), "--as-of", AS_OF,
+                               "--workers", workers], capsys)
+        assert code == 1 and "320 orders:" in stdout
+        outs.append(out.read_bytes())
+    assert outs[0] == outs[1]
+
+
 def test_identical_cases_are_decided_once():
     k = load_knowledge()
     header = ["order_id", "exam", "egfr"]

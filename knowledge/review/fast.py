@@ -40,7 +40,7 @@ import datetime as dt
 import operator
 from collections import Counter
 from dataclasses import dataclass
-from typing import Any, Callable
+from typing import Any, Callable, NamedTuple
 
 from pydantic import ValidationError
 
@@ -197,6 +197,14 @@ class _Doses:
     content: int  # what the dose limits read of them (each role's renal exposure and catheter study, each
     # dose's iodine and volume), numbered by FastReview._id
     catheter: bool  # a dose of a catheter study (the limits then read weight and creatinine: Cigarroa)
+
+
+class _Limits(NamedTuple):
+    """What the cells read of the dose limits (summary.plan_part_of): whether one is exceeded, and the messages."""
+
+    iodine_g_per_gfr_exceeded: bool | None
+    cigarroa_exceeded: bool | None
+    messages: tuple[str, ...]
 
 
 class _Roles:
@@ -452,7 +460,9 @@ class FastReview:
         key = (doses.content, p.dialysis, agfr, catheter, cigarroa)
         found = self.memo["limits"].get(key)
         if found is None:
-            found = self.memo["limits"][key] = plans._dose_limits(doses.doses, p, self.k.policy, agfr, catheter)
+            limits = plans._dose_limits(doses.doses, p, self.k.policy, agfr, catheter)
+            found = self.memo["limits"][key] = _Limits(limits.iodine_g_per_gfr_exceeded, limits.cigarroa_exceeded,
+                                                       tuple(limits.messages))
         return found
 
     def _times(self, case: m.Case) -> list:

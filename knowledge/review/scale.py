@@ -48,15 +48,16 @@ def _review_part(bounds: tuple[int, int]) -> tuple[list[dict], list[int], Counte
     return distinct, refs, _Worker.fast.stats - before
 
 
-def pool_reviewer(workers: int | None = None, min_rows: int = POOL_MIN_ROWS
+def pool_reviewer(workers: int | None = None, min_rows: int | None = None
                   ) -> Callable[[FastReview, list[dict]], list[dict]]:
     """A ``review_many`` for :func:`review_rows`: the distinct rows split into ``workers`` parts (default: the
     cores, at most 2), the first reviewed in this process while forked worker processes review the others, each
-    with the reviewer as it was when forked. Each part decides the first order of its classes itself."""
+    with the reviewer as it was when forked. Each part decides the first order of its classes itself. Below
+    ``min_rows`` distinct rows (default :data:`POOL_MIN_ROWS`) the list is reviewed in this process only."""
     n = workers or min(2, os.cpu_count() or 1)
 
     def review_many(fast: FastReview, rows: list[dict]) -> list[dict]:
-        if n < 2 or len(rows) < min_rows or "fork" not in multiprocessing.get_all_start_methods():
+        if n < 2 or len(rows) < (POOL_MIN_ROWS if min_rows is None else min_rows) or "fork" not in multiprocessing.get_all_start_methods():
             return fast.review(rows)
         size = -(-len(rows) // n)
         bounds = [(i, min(i + size, len(rows))) for i in range(0, len(rows), size)]
