@@ -93,8 +93,19 @@ def outcome(case_dict: dict, k: Any, builder: CaseBuilder) -> tuple[dict[str, An
         case = builder.validate(case_dict)
         d = decide(case, k)
     except (RowError, ContrastAidError) as exc:
-        return rejection(exc, k, case_dict.get("as_of")), None
+        return rejection(_forget(exc), k, case_dict.get("as_of")), None
     return summarise_decision(d, case), Record.of(d, case)
+
+
+def _forget(exc: BaseException) -> BaseException:
+    """``exc`` without the frames it holds, nor those of the errors it was raised from. Some engine errors sit
+    in a cycle with their own frame (``check_case_times`` raises the first of its list), and through the
+    traceback every caller's frame, the reviewer's included, would live on until a full collection."""
+    seen: BaseException | None = exc
+    while seen is not None:
+        seen.__traceback__ = None
+        seen = seen.__context__
+    return exc
 
 
 def review_case(case_dict: dict, k: Any, builder: CaseBuilder) -> dict[str, Any]:
@@ -319,7 +330,7 @@ class FastReview:
         try:
             case = self.builder.validate(self.case_dict(row))
         except (RowError, ContrastAidError) as exc:
-            return rejection(exc, self.k, self.stamp)
+            return rejection(_forget(exc), self.k, self.stamp)
         info = self.exam(case.exam)
         if info is None:
             return _NOT_FAST
@@ -400,7 +411,8 @@ class FastReview:
         alerts = _Alerts()
         try:
             egfr, _, category, _, _ = kidney_stage(case.patient, self.k.policy, alerts)
-        except ContrastAidError:
+        except ContrastAidError as exc:
+            _forget(exc)
             return None
         p = case.patient
         derived = {"patient.age_years": p.age_years, "patient.weight_kg": p.weight_kg,
@@ -519,7 +531,8 @@ class FastReview:
             return result
         try:
             result = self.finish(order, rec)
-        except ContrastAidError:  # a plan stage refuses this order's numbers: the plain path says why
+        except ContrastAidError as exc:  # a plan stage refuses this order's numbers: the plain path says why
+            _forget(exc)
             return self.plain(row)
         self.stats["fast"] += 1
         return result
