@@ -53,7 +53,8 @@ from ..errors import ContrastAidError
 from ..tables import models as m
 from ..tables.conditions import STATIC_PREFIXES, compile_condition, facts_used
 from .columns import CaseBuilder, RowError
-from .summary import RESULT_COLUMNS, ChoicePart, choice_part, columns, plan_part_of, summarise_decision
+from .summary import (RESULT_COLUMNS, ChoicePart, choice_part, columns, fmt_time, plan_part_of,
+                      summarise_decision)
 
 #: the case fields that vary from order to order and are worked out per order
 CONTINUOUS = (("patient", "age_years"), ("patient", "weight_kg"), ("patient", "height_cm"),
@@ -166,12 +167,13 @@ class _Template:
 
 def _shape(given: tuple[tuple[str, tuple], ...]) -> tuple:
     """How an order's case is rebuilt from its template's, for the numeric cells ``given`` (column, path):
-    every model on the way to one of them, deepest first, as (path, [(field, column)], [(field, child path)])."""
-    prefixes = {path[:i] for _, path in given for i in range(len(path))}
+    every model on the way to one of them, deepest first (the case itself last), as (path, [(field, column)],
+    [(field, index of the rebuilt child in this list)])."""
+    prefixes = sorted({path[:i] for _, path in given for i in range(len(path))}, key=len, reverse=True)
     out = []
-    for prefix in sorted(prefixes, key=len, reverse=True):
+    for prefix in prefixes:
         fields = [(path[-1], name) for name, path in given if path[:-1] == prefix]
-        children = [(c[-1], c) for c in prefixes if len(c) == len(prefix) + 1 and c[:-1] == prefix]
+        children = [(c[-1], i) for i, c in enumerate(prefixes) if len(c) == len(prefix) + 1 and c[:-1] == prefix]
         out.append((prefix, fields, children))
     return tuple(out)
 
@@ -183,7 +185,7 @@ def _owners(case: m.Case, shape: tuple, cells: dict[str, dict]) -> tuple:
         obj = case
         for part in prefix:
             obj = getattr(obj, part)
-        out.append((prefix, obj, [(field, name, cells[name]) for field, name in fields], children))
+        out.append((obj, [(field, name, cells[name]) for field, name in fields], children))
     return tuple(out)
 
 
@@ -223,6 +225,19 @@ class _Roles:
 
     def __init__(self, roles: list) -> None:
         self.roles = roles
+
+
+def _remembering(fmt: Callable[[Any], str]) -> Callable[[Any], str]:
+    """``fmt``, once per distinct value."""
+    seen: dict[Any, str] = {}
+
+    def remembered(value: Any) -> str:
+        text = seen.get(value)
+        if text is None:
+            text = seen[value] = fmt(value)
+        return text
+
+    return remembered
 
 
 def _getter(names: list[str]) -> Callable[[dict], tuple]:
@@ -278,8 +293,10 @@ class FastReview:
         self.shapes: dict[tuple, tuple] = {}
         self.cells_of: dict[tuple, dict] = {}  # (class choice, plan part, exam time) -> cells
         self.tested: dict[tuple, tuple] = {}  # (tests, fact value) -> results
-        self.memo: dict[str, dict] = {n: {} for n in ("doses", "limits", "hydration", "premedication", "metformin", "times")}
+        stages = ("doses", "limits", "hydration", "premedication", "metformin", "times")
+        self.memo: dict[str, dict] = {n: {} for n in stages}
         self.stats: Counter = Counter()
+        self._fmt = _remembering(fmt_time)
 
     # ------------------------------------------------------------------ the plain path
     def case_dict(self, row: dict[str, str]) -> dict:
@@ -362,27 +379,27 @@ class FastReview:
 
     def _case(self, tpl: _Template, row: dict[str, str]) -> m.Case | None:
         """The order's case: the template's, with the order's numeric cells (None: a cell the model refuses)."""
-        built: dict[tuple, Any] = {}
-        for prefix, obj, fields, children in tpl.owners:
+        built: list[Any] = []
+        for obj, fields, children in tpl.owners:
             changes = {}
             for field, name, cells in fields:
-                text = row[name]
-                value = cells.get(text, _MISSING)
+                value = cells.get(row[name], _MISSING)
                 if value is _MISSING:
-                    value = self._cell(obj, field, cells, text)
+                    value = self._cell(obj, field, cells, row[name])
                 if value is _BAD:
                     return None
                 changes[field] = value
-            for field, child in children:
-                changes[field] = built[child]
-            built[prefix] = _with(obj, changes)
-        return built.get((), tpl.case)
+            for field, i in children:
+                changes[field] = built[i]
+            built.append(_with(obj, changes))
+        return built[-1] if built else tpl.case
 
-    def _tests(self, tpl: _Template, derived: dict[str, Any]) -> tuple:
-        """The results of the exam's rules' tests on the order's derived facts (once per fact value)."""
+    def _tests(self, tpl: _Template, p: m.Patient, egfr: float | None, category: str | None) -> tuple:
+        """The results of the exam's rules' tests on the order's derived facts (once per fact value): the eGFR
+        and its category from ``kidney_stage``, the patient's numbers as ``case_facts`` gives them."""
         out = []
         for fact, tests in tpl.exam.tests:
-            value = derived[fact]
+            value = egfr if fact == "renal.egfr" else category if fact == "renal.category" else getattr(p, fact[8:])
             key = (id(tests), value)
             found = self.tested.get(key)
             if found is None:
@@ -414,10 +431,8 @@ class FastReview:
         except ContrastAidError as exc:
             _forget(exc)
             return None
-        p = case.patient
-        derived = {"patient.age_years": p.age_years, "patient.weight_kg": p.weight_kg,
-                   "patient.height_cm": p.height_cm, "renal.egfr": egfr, "renal.category": category}
-        return _Order(case, egfr, (tpl.key, self._tests(tpl, derived), egfr is None, tuple(alerts)), tpl)
+        tests = self._tests(tpl, case.patient, egfr, category)
+        return _Order(case, egfr, (tpl.key, tests, egfr is None, tuple(alerts)), tpl)
 
     def finish(self, order: _Order, rec: Record) -> dict[str, Any]:
         """The cells of an order of a decided class: the class's choice part, the order's own plans."""
@@ -443,7 +458,7 @@ class FastReview:
         key = (id(rec.choice), part, case.scheduled_at if part.creatinine_flag else None)
         cells = self.cells_of.get(key)
         if cells is None:
-            cells = self.cells_of[key] = columns(rec.choice, part, case.scheduled_at)
+            cells = self.cells_of[key] = columns(rec.choice, part, case.scheduled_at, self._fmt)
         return cells
 
     # ------------------------------------------------------------------ plan stages, remembered by their inputs

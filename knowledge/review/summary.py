@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import datetime as dt
 from dataclasses import dataclass
-from typing import Any, NamedTuple
+from typing import Any, Callable, NamedTuple
 
 from ..tables import models as m
 
@@ -144,8 +144,8 @@ def plan_part_of(required: bool, stale: bool | None, age_days: float | None, war
         metformin_hold_from=metformin.hold_from, metformin_recheck_at=metformin.recheck_at)
 
 
-def _actions(c: ChoicePart, p: PlanPart, needed_by: dt.datetime | None, creatinine: bool
-             ) -> tuple[list[str], list[dt.datetime]]:
+def _actions(c: ChoicePart, p: PlanPart, needed_by: dt.datetime | None, creatinine: bool,
+             fmt_time: Callable[[dt.datetime | None], str]) -> tuple[list[str], list[dt.datetime]]:
     """The actions in words, and their clock times."""
     actions: list[str] = []
     times: list[dt.datetime] = []
@@ -170,8 +170,10 @@ def _actions(c: ChoicePart, p: PlanPart, needed_by: dt.datetime | None, creatini
     return actions, times
 
 
-def columns(c: ChoicePart, p: PlanPart, scheduled_at: dt.datetime | None) -> dict[str, Any]:
-    """The result columns of one reviewed order (status ok or flagged)."""
+def columns(c: ChoicePart, p: PlanPart, scheduled_at: dt.datetime | None,
+            fmt_time: Callable[[dt.datetime | None], str] = fmt_time) -> dict[str, Any]:
+    """The result columns of one reviewed order (status ok or flagged); ``fmt_time`` writes a clock time (the
+    fast path passes one that remembers what it wrote)."""
     flags = list(c.flags_head)
     if p.creatinine_flag:
         flags.append(p.creatinine_flag)
@@ -179,13 +181,14 @@ def columns(c: ChoicePart, p: PlanPart, scheduled_at: dt.datetime | None) -> dic
     alerts = list(c.alerts_head) + list(p.warnings) + list(p.limit_messages) + list(c.alerts_tail)
     creatinine = p.creatinine_flag is not None  # the only flag that says "creatinine needed" or "stale"
     needed_by = scheduled_at if creatinine else None
-    actions, times = _actions(c, p, needed_by, creatinine)
+    actions, times = _actions(c, p, needed_by, creatinine, fmt_time)
     out = dict(
         exam_id=c.exam_id, planned_agent_verdict=c.planned_agent_verdict, best_agent=c.best_agent,
         best_agent_label=c.best_agent_label, best_agent_verdict=c.best_agent_verdict,
         flags="; ".join(dict.fromkeys(flags)), alerts=" | ".join(dict.fromkeys(alerts)), actions="; ".join(actions),
         first_action_at=fmt_time(min(times)) if times else "", premedication_start_at=fmt_time(p.premedication_start),
-        metformin_hold_from=fmt_time(p.metformin_hold_from), creatinine_needed_by=fmt_time(needed_by), **dict(c.provenance))
+        metformin_hold_from=fmt_time(p.metformin_hold_from), creatinine_needed_by=fmt_time(needed_by),
+        **dict(c.provenance))
     out["status"] = "flagged" if out["flags"] or out["alerts"] else "ok"
     out["reason"] = ""
     return out

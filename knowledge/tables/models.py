@@ -1066,7 +1066,8 @@ def constructor(model: type[BaseModel]) -> Any:
 
     def make(**values: Any) -> BaseModel:
         obj = new(model)
-        put(obj, "__dict__", {n: values[n] if n in values else defaults[n] for n in order if n in values or n in defaults})
+        put(obj, "__dict__", {n: values[n] if n in values else defaults[n]
+                              for n in order if n in values or n in defaults})
         put(obj, "__pydantic_fields_set__", {n for n in values if n in fields})
         put(obj, "__pydantic_extra__", None)
         put(obj, "__pydantic_private__", None)
