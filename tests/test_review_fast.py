@@ -276,6 +276,10 @@ def test_orders_that_differ_only_where_one_plan_stage_looks():
     child = {"exam": "ct-abdomen-pelvis", "weight_kg": "40", "height_cm": "150", "egfr": "12", "sex": "female",
              "scheduled_at": "2026-12-02T09:00"}
     rows += [dict(child, order_id=f"C{age}", age_years=age) for age in ("40", "12", "40", "12")]
+    urgent = {"exam": "ct-abdomen-pelvis", "age_years": "70", "sex": "male", "weight_kg": "80", "acute_kidney_injury":
+              "true", "prior_reactions": "iodinated:allergic_like:moderate", "scheduled_at": "2026-12-01T18:00"}
+    rows += [dict(urgent, order_id=f"U{u}{i}", urgency=u, weight_kg=str(80 + i))
+             for i in range(2) for u in ("elective", "urgent", "emergency", "")]
     header = sorted({c for r in rows for c in r}, key=lambda c: (c != "order_id", c))
     full = [{c: r.get(c, "") for c in header} for r in rows]
     review = assert_same(full, header, k)
@@ -284,6 +288,7 @@ def test_orders_that_differ_only_where_one_plan_stage_looks():
     assert "Cigarroa" in by["A3.0"]["alerts"] and "Cigarroa" not in by["A1.0"]["alerts"]
     assert by["C12"]["alerts"] != by["C40"]["alerts"] and "Iodine 20 g" in by["C40"]["alerts"]  # a child's dose
     assert "metformin hold" in by["M09-72"]["flags"] and by["M09-72"]["metformin_hold_from"] == "2026-12-02 09:00"
+    assert len({by[f"U{u}1"]["alerts"] for u in ("elective", "urgent", "emergency")}) == 3  # the urgency rules
     assert review.decided < len(rows) / 2
 
 

@@ -150,8 +150,9 @@ def _with(obj: Any, changes: dict) -> Any:
 class _Exam:
     """Per exam: the fixed facts its rules test, and its rules' tests on each derived fact."""
 
-    fixed: tuple[str, ...]
-    tests: tuple[tuple[str, tuple[Callable[[dict], bool], ...]], ...]  # (derived fact, its tests)
+    fixed: tuple[str, ...]  # the patient fields behind the patient facts the rules test (not the numbers)
+    #: (derived fact, the patient field it is, or None for the kidney's, its tests)
+    tests: tuple[tuple[str, str | None, tuple[Callable[[dict], bool], ...]], ...]
 
 
 @dataclass
@@ -262,6 +263,11 @@ def _tests(cond: m.Condition):
         yield from _tests(cond.not_)
 
 
+def _fact(value: Any) -> Any:
+    """A patient field as a fact (``engine.case_facts``: an enum by its value)."""
+    return value.value if hasattr(value, "value") else value
+
+
 def _hashable(value: Any) -> Any:
     return tuple(value) if isinstance(value, list) else value
 
@@ -290,6 +296,7 @@ class FastReview:
         self.cells: dict[str, dict[str, Any]] = {name: {} for name, _ in self.varying}  # column -> text -> value
         self.catheter: dict[str, bool] = {}
         self.ids: dict[tuple, int] = {}
+        self.chosen: dict[int, int] = {}  # id of a kept record -> its chosen agents, numbered
         self.shapes: dict[tuple, tuple] = {}
         self.cells_of: dict[tuple, dict] = {}  # (class choice, plan part, exam time) -> cells
         self.tested: dict[tuple, tuple] = {}  # (tests, fact value) -> results
@@ -331,7 +338,9 @@ class FastReview:
         rules += list(k.case_rules)
         names = {f for cr in rules for f in facts_used(cr.rule.when) if not f.startswith(STATIC_PREFIXES)}
         fixed = sorted(names - DERIVED_FACTS)
-        if not set(fixed) <= self.fixed_facts:
+        # history facts follow from the reactions and case.urgency from the urgency, both in the class key
+        if not set(fixed) <= self.fixed_facts or not all(
+                f.startswith(("patient.", "history.")) or f == "case.urgency" for f in fixed):
             return None
         tests: dict[str, dict[tuple, Callable[[dict], bool]]] = {}
         for cr in rules:
@@ -339,7 +348,9 @@ class FastReview:
                 if t.fact in DERIVED_FACTS:
                     tests.setdefault(t.fact, {}).setdefault(
                         (t.operator, repr(t.operand)), compile_condition(t, k.policy, cr.rule.id, cr.rule.scope))
-        return _Exam(tuple(fixed), tuple((f, tuple(t.values())) for f, t in sorted(tests.items())))
+        return _Exam(tuple(f[8:] for f in fixed if f.startswith("patient.")),
+                     tuple((f, None if f.startswith("renal.") else f[8:], tuple(t.values()))
+                           for f, t in sorted(tests.items())))
 
     def _template(self, row: dict[str, str]) -> Any:
         """The template of a row's class of cells, or the row's cells when its case is refused (the next row of
@@ -352,9 +363,9 @@ class FastReview:
         if info is None:
             return _NOT_FAST
         p = case.patient
-        facts = case_facts(case, None, None)
+        facts = tuple(_hashable(_fact(getattr(p, name))) for name in info.fixed)  # as case_facts gives them
         key = (case.exam, case.agent, case.override_culprit, case.urgency, case.as_of, tuple(p.prior_reactions),
-               p.takes_metformin, p.dialysis, p.acute_kidney_injury, tuple(_hashable(facts[n]) for n in info.fixed))
+               p.takes_metformin, p.dialysis, p.acute_kidney_injury, facts)
         doses_key = (p.iv_access, case.planned_volume_ml, case.planned_flow_ml_s, case.planned_concentration_mg_i_ml)
         given = tuple((name, path) for name, path in self.varying if row.get(name, ""))
         shape = self.shapes.get(given)
@@ -398,8 +409,8 @@ class FastReview:
         """The results of the exam's rules' tests on the order's derived facts (once per fact value): the eGFR
         and its category from ``kidney_stage``, the patient's numbers as ``case_facts`` gives them."""
         out = []
-        for fact, tests in tpl.exam.tests:
-            value = egfr if fact == "renal.egfr" else category if fact == "renal.category" else getattr(p, fact[8:])
+        for fact, field, tests in tpl.exam.tests:
+            value = getattr(p, field) if field else egfr if fact == "renal.egfr" else category
             key = (id(tests), value)
             found = self.tested.get(key)
             if found is None:
@@ -469,7 +480,10 @@ class FastReview:
         case = order.case
         p = case.patient
         child = p.age_years is not None and p.age_years < paediatric.ADULT_AGE_YEARS  # as plans.plan_doses
-        key = (self._id(rec.chosen), child, p.weight_kg, order.tpl.doses_key)
+        chosen = self.chosen.get(id(rec))
+        if chosen is None:
+            chosen = self.chosen[id(rec)] = self._id(rec.chosen)
+        key = (chosen, child, p.weight_kg, order.tpl.doses_key)
         found = self.memo["doses"].get(key)
         if found is None:
             roles, doses, iodinated = plans.plan_doses(case, self.k, exam, _Roles(rec.roles))
