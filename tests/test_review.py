@@ -232,6 +232,21 @@ def test_process_pool_gives_the_same_rows(workers):
     assert plain.unique_cases < len(rows)  # identical cases decided once
 
 
+def test_pool_parts_share_no_class():
+    from knowledge.review.scale import parts_of
+
+    rows = [{"exam": e, "planned_agent": a} for e, a, n in (("ct-chest", "", 50), ("ct-chest", "iohexol", 30),
+                                                             ("fluoro-upper-gi", "", 40), ("ct-urography", "", 20))
+            for _ in range(n)]
+    parts = parts_of(rows, 2)
+    assert sorted(i for part in parts for i in part) == list(range(len(rows))) and len(parts) == 2
+    assert all(part == sorted(part) for part in parts)
+    groups = [{(rows[i]["exam"], rows[i]["planned_agent"]) for i in part} for part in parts]
+    assert not groups[0] & groups[1] and sorted(len(p) for p in parts) == [70, 70]
+    one = [{"exam": "ct-chest"}] * 9  # one group: cut by position
+    assert parts_of(one, 2) == [[0, 1, 2, 3, 4], [5, 6, 7, 8]] and parts_of(one[:1], 2) == [[0]]
+
+
 def test_workers_2_writes_the_same_file(tmp_path, capsys, monkeypatch):
     from knowledge.review import scale
 

@@ -29,13 +29,12 @@ class _Worker:
     rows: list[dict] = []
 
 
-def _review_part(bounds: tuple[int, int]) -> tuple[list[dict], list[int], Counter]:
-    """Review rows[start:stop] in a worker; the cells come back once per distinct result, with an index, and
-    what the worker counted (rows decided in full, rows done the fast way)."""
-    start, stop = bounds
+def _review_part(indexes: list[int]) -> tuple[list[dict], list[int], Counter]:
+    """Review the rows at ``indexes`` in a worker; the cells come back once per distinct result, with an index,
+    and what the worker counted (rows decided in full, rows done the fast way)."""
     assert _Worker.fast is not None
     before = Counter(_Worker.fast.stats)
-    results = _Worker.fast.review(_Worker.rows[start:stop])
+    results = _Worker.fast.review([_Worker.rows[i] for i in indexes])
     index: dict[int, int] = {}
     distinct: list[dict] = []
     refs = []
@@ -48,27 +47,48 @@ def _review_part(bounds: tuple[int, int]) -> tuple[list[dict], list[int], Counte
     return distinct, refs, _Worker.fast.stats - before
 
 
+def parts_of(rows: list[dict], n: int) -> list[list[int]]:
+    """The rows' indexes in ``n`` parts of about equal size that share no class of orders: whole groups of
+    one exam and planned agent (both in every class key), the largest first into the smallest part. A list
+    with one dominant group is cut by position instead (its classes are then decided once per part)."""
+    groups: dict[tuple, list[int]] = {}
+    for i, row in enumerate(rows):
+        groups.setdefault((row.get("exam", ""), row.get("planned_agent", "")), []).append(i)
+    parts: list[list[int]] = [[] for _ in range(n)]
+    for indexes in sorted(groups.values(), key=len, reverse=True):
+        min(parts, key=len).extend(indexes)
+    if max(len(part) for part in parts) > 1.3 * len(rows) / n:
+        size = -(-len(rows) // n)
+        return [list(range(i, min(i + size, len(rows)))) for i in range(0, len(rows), size)]
+    return [sorted(part) for part in parts if part]
+
+
 def pool_reviewer(workers: int | None = None, min_rows: int | None = None
                   ) -> Callable[[FastReview, list[dict]], list[dict]]:
     """A ``review_many`` for :func:`review_rows`: the distinct rows split into ``workers`` parts (default: the
-    cores, at most 2), the first reviewed in this process while forked worker processes review the others, each
-    with the reviewer as it was when forked. Each part decides the first order of its classes itself. Below
-    ``min_rows`` distinct rows (default :data:`POOL_MIN_ROWS`) the list is reviewed in this process only."""
+    cores, at most 2; :func:`parts_of`), the first reviewed in this process while forked worker processes
+    review the others, each with the reviewer as it was when forked. Below ``min_rows`` distinct rows (default
+    :data:`POOL_MIN_ROWS`) the list is reviewed in this process only."""
     n = workers or min(2, os.cpu_count() or 1)
 
     def review_many(fast: FastReview, rows: list[dict]) -> list[dict]:
-        if n < 2 or len(rows) < (POOL_MIN_ROWS if min_rows is None else min_rows) or "fork" not in multiprocessing.get_all_start_methods():
+        small = len(rows) < (POOL_MIN_ROWS if min_rows is None else min_rows)
+        if n < 2 or small or "fork" not in multiprocessing.get_all_start_methods():
             return fast.review(rows)
-        size = -(-len(rows) // n)
-        bounds = [(i, min(i + size, len(rows))) for i in range(0, len(rows), size)]
+        parts = parts_of(rows, n)
+        if len(parts) < 2:
+            return fast.review(rows)
+        out: list[Any] = [None] * len(rows)
         _Worker.fast, _Worker.rows = fast, rows
         try:
-            with ProcessPoolExecutor(len(bounds) - 1, mp_context=multiprocessing.get_context("fork")) as ex:
-                parts = [ex.submit(_review_part, b) for b in bounds[1:]]
-                out = fast.review(rows[bounds[0][0]:bounds[0][1]])
-                for part in parts:
-                    distinct, refs, counted = part.result()
-                    out += [distinct[i] for i in refs]
+            with ProcessPoolExecutor(len(parts) - 1, mp_context=multiprocessing.get_context("fork")) as ex:
+                futures = [ex.submit(_review_part, part) for part in parts[1:]]
+                for i, result in zip(parts[0], fast.review([rows[i] for i in parts[0]])):
+                    out[i] = result
+                for part, future in zip(parts[1:], futures):
+                    distinct, refs, counted = future.result()
+                    for i, ref in zip(part, refs):
+                        out[i] = distinct[ref]
                     fast.stats.update(counted)
         finally:
             _Worker.fast, _Worker.rows = None, []
