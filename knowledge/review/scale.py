@@ -1,7 +1,9 @@
 """Reviewing many orders at once: a process pool on one machine, or a Dask cluster over Parquet.
 
-``decide`` is pure, so orders are independent. Both paths run :func:`review_rows` on pieces of the list
-and give output identical to the in-process run (same rows, same order, same cells).
+``decide`` is pure, so orders are independent. The pool splits a list's distinct rows into parts that share
+no class of orders and reviews them with :class:`~knowledge.review.fast.FastReview` in forked processes; the
+Dask path runs :func:`review_rows` per partition. Both give output identical to the in-process run (same
+rows, same order, same cells).
 """
 
 from __future__ import annotations

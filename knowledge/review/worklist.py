@@ -1,10 +1,13 @@
 """Review a worklist: every order decided under one policy and one "as of" time.
 
 ``review_rows`` is pure (no clock, no files): rows in, one result per row out, in order. Identical cases
-(every column the same but ``order_id``) are decided once. ``read_worklist`` and ``write_reviewed`` do
-the file work: CSV, XLSX or Parquet in; the same out, written to a temporary file in the target folder
-and renamed over it (``os.replace``), so an interrupted run never leaves half a file. Cells written to
-CSV/XLSX that a spreadsheet would run as a formula are prefixed with ``'``.
+(every column the same but ``order_id``) are reviewed once, distinct ones by ``knowledge.review.fast`` (one
+full decision per class of orders, the numbers per order: the same cells as deciding each in full).
+``read_worklist`` and ``write_reviewed`` do the file work: CSV, XLSX or Parquet in; the same out, written to
+a temporary file in the target folder and renamed over it (``os.replace``), so an interrupted run never
+leaves half a file; a plain CSV is read and written with the ``csv`` module (pandas gives the same cells, at
+the cost of importing it). Cells written to CSV/XLSX that a spreadsheet would run as a formula are prefixed
+with ``'``.
 """
 
 from __future__ import annotations
