@@ -261,6 +261,7 @@ def test_orders_that_differ_only_where_one_plan_stage_looks():
     premed = {"exam": "ct-abdomen-pelvis", "prior_reactions": "iodinated:allergic_like:moderate", "sex": "male",
               "scheduled_at": "2026-12-02T09:00", "weight_kg": "60", "height_cm": "150", "egfr": "90"}
     rows = [dict(premed, order_id=f"P{age}", age_years=age) for age in ("10", "16", "17.9", "18", "40", "40")]
+    rows += [dict(premed, order_id=f"PW{w}", age_years="9", weight_kg=w) for w in ("20", "", "35")]  # per-kg doses
     angio = {"exam": "angio-visceral-renal", "planned_agent": "iohexol", "planned_volume_ml": "250", "weight_kg": "70",
              "age_years": "60",
              "sex": "female", "creatinine_unit": "mg/dL", "scheduled_at": "2026-12-02T09:00"}
@@ -285,6 +286,7 @@ def test_orders_that_differ_only_where_one_plan_stage_looks():
     review = assert_same(full, header, k)
     by = {r["order_id"]: r for r in review.rows}
     assert by["P10"]["alerts"] != by["P40"]["alerts"]  # the child's premedication warning
+    assert by["PW"]["alerts"] != by["PW35"]["alerts"]  # a child's premedication per kg, or "no weight was given"
     assert "Cigarroa" in by["A3.0"]["alerts"] and "Cigarroa" not in by["A1.0"]["alerts"]
     assert by["C12"]["alerts"] != by["C40"]["alerts"] and "Iodine 20 g" in by["C40"]["alerts"]  # a child's dose
     assert "metformin hold" in by["M09-72"]["flags"] and by["M09-72"]["metformin_hold_from"] == "2026-12-02 09:00"

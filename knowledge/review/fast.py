@@ -23,7 +23,7 @@ agree in what the rules read (exam, planned agent, flags, reactions, kidney band
    the order's own case: creatinine freshness, body surface and absolute GFR, the dose limits, the hydration
    plan, the premedication schedule and the metformin hold. Stages whose inputs repeat are remembered by
    exactly the inputs they read (the doses: chosen agents, weight, child or not, IV access and planned
-   volume, flow and strength; the schedule: exam time, as_of, urgency, child or not).
+   volume, flow and strength; the schedule: exam time, as_of, urgency, child or not, weight).
 
 An order whose cells the model refuses, or whose date-times contradict its as_of, is rejected with the
 words the plain path gives (the same error, mapped by :func:`rejection`); an error in any other stage sends
@@ -527,9 +527,11 @@ class FastReview:
         return found
 
     def _premedication(self, case: m.Case, rec: Record) -> Any:
-        """``plan_premedication``: it reads the exam time, as_of, urgency and whether the patient is a child."""
-        age = case.patient.age_years
-        key = (case.scheduled_at, case.as_of, case.urgency, age is not None and age < paediatric.ADULT_AGE_YEARS)
+        """``plan_premedication``: it reads the exam time, as_of, urgency, whether the patient is a child and the
+        weight (a child's doses are per kg)."""
+        p = case.patient
+        child = p.age_years is not None and p.age_years < paediatric.ADULT_AGE_YEARS
+        key = (case.scheduled_at, case.as_of, case.urgency, child, p.weight_kg)
         found = self.memo["premedication"].get(key)
         if found is None:
             found = self.memo["premedication"][key] = plans.plan_premedication(case, self.k, rec.premedication)
