@@ -101,6 +101,7 @@ def test_writing_is_atomic_and_replaces_the_older_entry(tmp_path, monkeypatch):
     assert cache.write(path, b"a: 2\n", {"a": 2}) == 1
     names = sorted(p.name for p in (tmp_path / cache.FOLDER).iterdir())
     assert names == [cache.entry_path(path, b"a: 2\n").name], names  # one entry, no temporary file left
+    assert cache.entry_path(path, b"a: 2\n").stat().st_mode & 0o777 == 0o644
     assert cache.read(path, b"a: 1\n") is cache.MISSING
 
 

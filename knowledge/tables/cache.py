@@ -92,6 +92,7 @@ def write(path: Path, blob: bytes, data: Any) -> int:
         fd, tmp = tempfile.mkstemp(dir=where.parent, prefix=f".{where.stem}.", suffix=".tmp")
         with os.fdopen(fd, "w", encoding="ascii") as fh:
             fh.write(text)
+        os.chmod(tmp, 0o644)  # readable like the tables themselves (mkstemp makes it private)
         os.replace(tmp, where)
         tmp = None
         for old in where.parent.glob(f"{Path(path).stem}.*.json"):
