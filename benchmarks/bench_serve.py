@@ -1,7 +1,7 @@
 """What one served session costs, in one run and one table: core speed, time to interactive, kernel memory
 and time to interactive with several users at once.
 
-    python benchmarks/bench_serve.py [--loads N] [--users 1,4,8] [--rounds N]
+    python benchmarks/bench_serve.py [--loads N] [--users 1,4,8] [--rounds N] [--pool N]
 
 Rows (all measured here, now, on this machine):
 
@@ -12,9 +12,14 @@ Rows (all measured here, now, on this machine):
   is drawn and Voila's spinner is gone (benchmarks/bench_tti.py's definition); medians of ``--loads``
   loads after one warm-up, the two servers alternating;
 * kernel memory (RSS, from /proc) per session for both pages, and the ratio: measured on each load once
-  the page is interactive and its plots are drawn, median;
+  the page is interactive and its plots are drawn, median (the page's own kernel, found by the kernel id
+  in its websocket's URL, not a kernel the pool started meanwhile);
 * TTI with 1, 4 and 8 users opening the dashboard at the same moment (one browser, one context each):
   the median and the slowest of them, over two rounds.
+
+The dashboard server runs as ``contrast-aid serve`` runs it (``serve.prepare()``, then the server with its
+pool of ``--pool`` started kernels, default ``serve.POOL_SIZE``); before each measurement the benchmark
+waits until the pool is full again (the health check's ``pooled``), so each starts from the same state.
 
 The browser runs on the same two cores as the server, so the concurrent figures include Chromium's own
 rendering work: they are a pessimistic bound for users on their own machines. Pages are closed with
@@ -31,8 +36,10 @@ import json
 import os
 import statistics
 import sys
+import re
 import tempfile
 import time
+import urllib.request
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -46,6 +53,7 @@ from widgets import serve  # noqa: E402
 CASE_QUERY = "exam=ct-abdomen-pelvis&creatinine=1.4&unit=mg/dL&age=60&sex=male&weight=80"
 LOCAL = ("http://127.0.0.1", "http://localhost", "data:", "blob:")
 TIMEOUT_MS = 90_000
+KERNEL_WS = re.compile(r"/api/kernels/([0-9a-f-]{36})/channels")
 #: a tab-close request that has not ended its kernel by then was lost (the cull ends that kernel later)
 CLOSE_WAIT_S = 5.0
 
@@ -106,11 +114,12 @@ async def load_once(browser, url: str, selector: str, server_pid: int | None = N
                     ) -> tuple[float, float | None]:
     """(seconds to interactive, kernel RSS MB once interactive and plotted, or None); with
     ``close_times``, appends the seconds from closing the tab until its kernel process has ended."""
-    before = set(procs.kernels(server_pid)) if server_pid is not None else set()
     context = await browser.new_context(viewport={"width": 1280, "height": 900})
     closed = False
+    kernel_ids: list[str] = []  # the page's kernel, from its websocket's URL (…/api/kernels/<id>/channels)
     try:
         page = await context.new_page()
+        page.on("websocket", lambda ws: kernel_ids.extend(KERNEL_WS.findall(ws.url)))
         await page.route("**/*", _route_local)
         t0 = time.perf_counter()
         await page.goto(url, wait_until="commit", timeout=TIMEOUT_MS)
@@ -123,7 +132,8 @@ async def load_once(browser, url: str, selector: str, server_pid: int | None = N
             if plot_selector:
                 await page.wait_for_selector(plot_selector, timeout=TIMEOUT_MS)
             await asyncio.sleep(1.0)  # let the kernel finish replying to the first round of widget messages
-            started = set(procs.kernels(server_pid)) - before
+            # the page's own kernel (not one the pool started meanwhile)
+            started = {pid for pid, kid in procs.kernels(server_pid).items() if kid in kernel_ids[:1]}
             rss = procs.rss_mb(next(iter(started))) if len(started) == 1 else None
         closed_at = time.perf_counter()
         await page.close(run_before_unload=True)
@@ -143,19 +153,33 @@ async def load_once(browser, url: str, selector: str, server_pid: int | None = N
     return tti, rss
 
 
-async def settle(server_pid: int, timeout: float = 60) -> None:
-    """Wait until the server holds no kernel (the closed pages' kernels have ended)."""
+async def settle(server_pid: int, timeout: float = 60, health: str | None = None, pool: int = 0) -> None:
+    """Wait until the server holds no page's kernel (the closed pages' kernels have ended) and, with
+    ``health`` (the dashboard's health check URL), until its pool holds ``pool`` ready kernels."""
     t0 = time.monotonic()
-    while procs.kernels(server_pid) and time.monotonic() - t0 < timeout:
+    while time.monotonic() - t0 < timeout:
+        if health is None:
+            if not procs.kernels(server_pid):
+                return
+        else:
+            with urllib.request.urlopen(health, timeout=5) as resp:
+                state = json.loads(resp.read())
+            if state["kernels"] == 0 and state.get("pooled", 0) >= pool:
+                return
         await asyncio.sleep(0.2)
 
 
 async def browser_figures(loads: int, users: list[int], app_port: int, app_pid: int, slider_port: int,
-                          slider_pid: int) -> dict:
+                          slider_pid: int, pool: int) -> dict:
     from playwright.async_api import async_playwright
 
     app_url = serve.url_for(app_port) + "?" + CASE_QUERY
     slider_url = serve.url_for(slider_port)
+    health = serve.url_for(app_port) + serve.READY_PROBE
+
+    async def settle_app() -> None:
+        await settle(app_pid, health=health, pool=pool)
+
     out: dict = {"tti": {"app": [], "slider": []}, "rss": {"app": [], "slider": []}, "users": {}, "closed": []}
     async with async_playwright() as p:
         browser = await p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
@@ -164,7 +188,7 @@ async def browser_figures(loads: int, users: list[int], app_port: int, app_pid: 
         for _ in range(loads):
             for name, url, sel, pid, plot in (("slider", slider_url, ".widget-slider", slider_pid, None),
                                               ("app", app_url, ".ca-exam", app_pid, ".js-plotly-plot .main-svg")):
-                await settle(pid)
+                await (settle_app() if name == "app" else settle(pid))
                 tti, rss = await load_once(browser, url, sel, pid, plot,
                                            out["closed"] if name == "app" else None)
                 out["tti"][name].append(tti)
@@ -174,7 +198,7 @@ async def browser_figures(loads: int, users: list[int], app_port: int, app_pid: 
         for n in users:
             times: list[float] = []
             for _ in range(2):
-                await settle(app_pid)
+                await settle_app()
                 # a fresh browser per round: one long-lived Chromium stopped sending the page requests of
                 # later rounds here (its connections to the server stayed open, no request arrived)
                 browser = await p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS)
@@ -199,6 +223,8 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--loads", type=int, default=5, help="timed single-user loads per page (default 5)")
     parser.add_argument("--users", default="1,4,8", help="concurrent users to time (default 1,4,8)")
     parser.add_argument("--rounds", type=int, default=200, help="recompute rounds in process (default 200)")
+    parser.add_argument("--pool", type=int, default=serve.POOL_SIZE,
+                        help=f"the dashboard server's pool of started kernels (default {serve.POOL_SIZE}, as serve)")
     args = parser.parse_args(argv)
     users = [int(u) for u in args.users.split(",") if u.strip()]
     if not CHROMIUM.exists():
@@ -215,12 +241,15 @@ def main(argv: list[str] | None = None) -> int:
                       # plain Voila's tab-close request is refused (no XSRF cookie): cull its kernels instead
                       "--MappingKernelManager.cull_idle_timeout=5", "--MappingKernelManager.cull_interval=1"]
         slider = start(slider_cmd, slider_port, serve.voila_environment(None, base=dict(os.environ)))
-        # contrast-aid serve as shipped, but culling kernels whose tab-close request was lost after 10 s
-        # (not 120 s), so that such a kernel cannot hold up the next measurement
-        app = start(serve.voila_command(app_port, None, cull_idle_seconds=10, cull_interval_seconds=2), app_port,
-                    serve.voila_environment(None))
+        # contrast-aid serve as shipped (its preparation, then the server), but culling kernels whose
+        # tab-close request was lost after 10 s (not 120 s), so that such a kernel cannot hold up the next
+        # measurement (a kernel whose page has not connected yet is not culled that early: widgets/server.py)
+        serve.prepare()
+        app = start(serve.voila_command(app_port, None, cull_idle_seconds=10, cull_interval_seconds=2,
+                                        pool_size=args.pool), app_port, serve.voila_environment(None))
         try:
-            b = asyncio.run(browser_figures(args.loads, users, app_port, app.pid, slider_port, slider.pid))
+            b = asyncio.run(browser_figures(args.loads, users, app_port, app.pid, slider_port, slider.pid,
+                                            args.pool))
         finally:
             serve.stop(app)
             serve.stop(slider)
@@ -258,6 +287,8 @@ def main(argv: list[str] | None = None) -> int:
     for name, value, note in rows:
         print(f"{name:{width}s}  {value:>10s}  {note}")
     load = os.getloadavg()
+    print(f"dashboard server: pool of {args.pool} started kernel{'s' if args.pool != 1 else ''} (refilled between "
+          "measurements)")
     print(f"machine: {os.cpu_count()} cores, {_mem_gb():.0f} GB; server, kernels and Chromium share them; "
           f"load average at the start {load0:.1f}, at the end {load[0]:.1f} / {load[1]:.1f} / {load[2]:.1f} (1 / 5 / 15 min)")
     return 0

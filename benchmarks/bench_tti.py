@@ -10,9 +10,10 @@ headless Debian Chromium and is timed from navigation start until
 
 i.e. until the user can operate the first control. The first load of each server is a warm-up (it pays
 for the operating system's cold file cache) and is not counted; the figures are medians of the rest,
-loads of the two servers alternating. The slider notebook is served by plain Voila with its default
-template; the browser aborts requests off the machine for both pages so a missing internet connection
-(its CDN font stylesheet) costs neither page time.
+loads of the two servers alternating (each dashboard load once the server's pool of started kernels is
+full again, as for a page opened after a quiet moment). The slider notebook is served by plain Voila
+with its default template; the browser aborts requests off the machine for both pages so a missing
+internet connection (its CDN font stylesheet) costs neither page time.
 
     python benchmarks/bench_tti.py [--loads N]
 """
@@ -29,6 +30,7 @@ import subprocess
 import sys
 import tempfile
 import time
+import urllib.request
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -96,6 +98,16 @@ def dashboard_page(query: str, viewport: dict[str, int]):
         serve.stop(proc)
 
 
+def wait_for_pool(port: int, timeout: float = 60.0) -> None:
+    """Wait until the dashboard server's pool holds ``serve.POOL_SIZE`` started kernels (its health check)."""
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        with urllib.request.urlopen(serve.url_for(port) + serve.READY_PROBE, timeout=5) as resp:
+            if json.loads(resp.read()).get("pooled", 0) >= serve.POOL_SIZE:
+                return
+        time.sleep(0.2)
+
+
 def time_load(browser, url: str, selector: str, plot_selector: str | None = None) -> tuple[float, float | None]:
     """Seconds to interactive, and (with ``plot_selector``) seconds until the first plot is drawn."""
     context = browser.new_context(viewport={"width": 1280, "height": 900})
@@ -136,6 +148,7 @@ def main(argv: list[str] | None = None) -> int:
             sys.executable, "-m", "voila", str(slider_nb), "--no-browser",
             f"--port={slider_port}", "--Voila.ip=127.0.0.1", "--Voila.port_retries=0",
         ]  # fmt: skip
+        serve.prepare()  # as `contrast-aid serve` does before it starts the server
         procs = [
             start(slider_cmd, slider_port, dict(os.environ)),
             start(serve.voila_command(app_port, None), app_port, serve.voila_environment(None)),
@@ -153,6 +166,8 @@ def main(argv: list[str] | None = None) -> int:
                     time_load(browser, url, sel, plot_sel)  # warm-up, not counted
                 for _ in range(args.loads):
                     for name, (url, sel, plot_sel) in targets.items():
+                        if plot_sel:  # each dashboard load finds the server's pool full, as after a quiet moment
+                            wait_for_pool(app_port)
                         tti, plots = time_load(browser, url, sel, plot_sel)
                         times[name].append(tti)
                         if plots is not None:

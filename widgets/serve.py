@@ -48,6 +48,13 @@ READY_PROBE = "contrast-aid/health"
 CULL_IDLE_S = 120
 CULL_INTERVAL_S = 30
 BASE_URL = "/"
+#: Kernels ``serve`` keeps started ahead of page requests (widgets/server.py), and what each one runs
+#: while it waits: the dashboard's imports, nothing of any user (the app is built when a page asks).
+POOL_SIZE = 2
+POOL_PRELOAD = "import widgets.app"
+MAX_POOL = 32
+#: seconds nbclient waits for a cell's output messages after the kernel's reply (its default is 4)
+IOPUB_TIMEOUT_S = 60
 
 
 def _package_dir() -> Path:
@@ -82,7 +89,7 @@ def normal_base_url(base_url: str | None) -> str:
 
 
 def voila_arguments(port: int, cull_idle_seconds: int = CULL_IDLE_S, cull_interval_seconds: int = CULL_INTERVAL_S,
-                    base_url: str = BASE_URL, secure_cookies: bool = False) -> list[str]:
+                    base_url: str = BASE_URL, secure_cookies: bool = False, pool_size: int = POOL_SIZE) -> list[str]:
     """Voila's own command-line arguments: fixed port, local only, no browser, our offline template,
     idle kernels without a browser culled, no template or theme from the URL."""
     return [
@@ -104,7 +111,15 @@ def voila_arguments(port: int, cull_idle_seconds: int = CULL_IDLE_S, cull_interv
         f"--MappingKernelManager.cull_interval={int(cull_interval_seconds)}",
         "--MappingKernelManager.cull_connected=False",
         "--MappingKernelManager.cull_busy=False",
-        "--VoilaConfiguration.multi_kernel_manager_class=widgets.server.KernelManager",
+        "--VoilaConfiguration.multi_kernel_manager_class=widgets.server.ContrastAidKernelManager",
+        # Voila runs the notebook with nbclient, which takes the cell's output only until IOPub_TIMEOUT_S
+        # after the kernel's reply: with 8 pages opening at once on 2 cores the server read the kernels'
+        # messages too slowly, nbclient's default 4 s passed, and the page came without the dashboard.
+        f"--VoilaExecutor.iopub_timeout={IOPUB_TIMEOUT_S}",
+        # nbclient keeps a copy of every widget's state for the notebook file; Voila's page never uses it
+        "--VoilaExecutor.store_widget_state=False",
+        f"--ContrastAidKernelManager.pool_size={int(pool_size)}",
+        f"--ContrastAidKernelManager.pool_preload={POOL_PRELOAD}",
         f"--ContrastAidVoila.secure_cookies={bool(secure_cookies)}",
     ]
 
@@ -139,6 +154,10 @@ def voila_environment(policy: str | os.PathLike | None, base: dict[str, str] | N
         env.pop(POLICY_ENV, None)
     # The kernel's debugger otherwise warns on every start about frozen modules.
     env.setdefault("PYDEVD_DISABLE_FILE_VALIDATION", "1")
+    # glibc gives each thread that allocates its own heap ("arena"); a kernel's message threads then kept
+    # about 3.5 MB more resident in about half the sessions measured here (README, capacity). One arena
+    # for the server and its kernels (they run Python code on one thread at a time anyway).
+    env.setdefault("MALLOC_ARENA_MAX", "1")
     return env
 
 
@@ -168,6 +187,41 @@ def check_policy(policy: str | os.PathLike | None) -> str | None:
     except KnowledgeError as exc:
         return str(exc)
     return None
+
+
+#: the packages a dashboard kernel imports from this project
+PACKAGES = ("knowledge", "widgets", PACKAGE)
+
+
+def prepare(timeout: float = 120.0) -> None:
+    """What pip does at install and an editable install or a checkout lacks: byte-compile the project's
+    modules and store the bundled tables' parse cache (``knowledge/tables/cache.py``), in a short-lived
+    process, so that no dashboard kernel compiles sources or parses YAML itself (Python only reads
+    ``__pycache__``; under ``PYTHONDONTWRITEBYTECODE`` every kernel compiled every module, about 0.2 s of
+    CPU a page here). Best effort: a read-only install, or any failure, changes nothing but speed."""
+    try:
+        subprocess.run([sys.executable, "-m", "widgets.serve", "--prepare"], timeout=timeout, check=False,
+                       stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    except (OSError, subprocess.SubprocessError):
+        pass
+
+
+def _prepare_here() -> int:
+    import compileall
+    import importlib.util
+
+    for name in PACKAGES:
+        spec = importlib.util.find_spec(name)
+        for folder in (spec.submodule_search_locations or []) if spec else []:
+            compileall.compile_dir(folder, quiet=2, workers=1)
+    from knowledge.errors import KnowledgeError
+    from knowledge.tables.loader import write_parse_cache
+
+    try:
+        write_parse_cache()
+    except KnowledgeError:
+        pass
+    return 0
 
 
 def wait_until_ready(port: int, proc: subprocess.Popen | None = None, timeout: float = READY_TIMEOUT_S,
@@ -217,13 +271,14 @@ def _port_free(port: int) -> bool:
 
 
 def serve(port: int, policy: str | None, open_browser: bool = False, *, cull_idle_seconds: int = CULL_IDLE_S,
-          cull_interval_seconds: int = CULL_INTERVAL_S, base_url: str = BASE_URL, secure_cookies: bool = False) -> int:
+          cull_interval_seconds: int = CULL_INTERVAL_S, base_url: str = BASE_URL, secure_cookies: bool = False,
+          pool_size: int = POOL_SIZE) -> int:
     """Run the dashboard until interrupted. Prints the URL once the server answers. Returns an exit code.
 
     2: the policy file does not load, the port is not usable or an option is out of range; 1: Voila failed
     to start or stopped with an error; 0: stopped by the user (Ctrl-C) or Voila exited cleanly.
     """
-    problem = _option_problem(port, cull_idle_seconds, cull_interval_seconds)
+    problem = _option_problem(port, cull_idle_seconds, cull_interval_seconds, pool_size)
     if problem:
         print(problem, file=sys.stderr)
         return 2
@@ -233,7 +288,7 @@ def serve(port: int, policy: str | None, open_browser: bool = False, *, cull_idl
         print(str(exc), file=sys.stderr)
         return 2
     options = dict(cull_idle_seconds=int(cull_idle_seconds), cull_interval_seconds=int(cull_interval_seconds),
-                   base_url=base_url, secure_cookies=bool(secure_cookies))
+                   base_url=base_url, secure_cookies=bool(secure_cookies), pool_size=int(pool_size))
     policy = policy or os.environ.get(POLICY_ENV) or None
     problem = check_policy(policy)
     if problem:
@@ -250,20 +305,23 @@ def serve(port: int, policy: str | None, open_browser: bool = False, *, cull_idl
     return _run_voila(cmd, policy, port, base_url, open_browser)
 
 
-def _option_problem(port: int, cull_idle_seconds: int, cull_interval_seconds: int) -> str | None:
-    """The message for a port or cull time out of range, or None."""
+def _option_problem(port: int, cull_idle_seconds: int, cull_interval_seconds: int, pool_size: int) -> str | None:
+    """The message for a port, cull time or pool size out of range, or None."""
     if not (0 < int(port) < 65536):
         return f"port: {port} is not a TCP port; allowed 1-65535"
     for name, value, low in (("cull-idle-seconds", cull_idle_seconds, 10),
                              ("cull-interval-seconds", cull_interval_seconds, 1)):
         if not (low <= int(value) <= 86_400):
             return f"{name}: {value} is out of range; allowed {low}-86400 seconds"
+    if not (0 <= int(pool_size) <= MAX_POOL):
+        return f"pool-size: {pool_size} is out of range; allowed 0-{MAX_POOL} kernels"
     return None
 
 
 def _run_voila(cmd: list[str], policy: str | None, port: int, base_url: str, open_browser: bool) -> int:
     """Start Voila, print the URL once it answers, and wait for it; Voila (and its kernels) is stopped on
     the way out, whatever the way (Ctrl-C, SIGTERM, a failed start)."""
+    prepare()
     proc = subprocess.Popen(cmd, env=voila_environment(policy))
     previous = _stop_on_sigterm()
     try:
@@ -311,8 +369,11 @@ def _launch(argv: list[str]) -> int:
     """``python -m widgets.serve [--policy FILE] -- VOILA-ARGS``: set the environment, run Voila here."""
     parser = argparse.ArgumentParser(prog="python -m widgets.serve", description=_launch.__doc__)
     parser.add_argument("--policy", default=None)
+    parser.add_argument("--prepare", action="store_true", help="byte-compile and store the parse cache, then exit")
     parser.add_argument("voila_args", nargs=argparse.REMAINDER)
     ns = parser.parse_args(argv)
+    if ns.prepare:
+        return _prepare_here()
     args = ns.voila_args[1:] if ns.voila_args[:1] == ["--"] else ns.voila_args
     env = voila_environment(ns.policy)
     os.environ.update(env)

@@ -300,7 +300,7 @@ def cmd_serve(args: argparse.Namespace) -> int:
 
     return serve(args.port, args.policy, cull_idle_seconds=args.cull_idle_seconds,
                  cull_interval_seconds=args.cull_interval_seconds, base_url=args.base_url,
-                 secure_cookies=args.secure_cookies)
+                 secure_cookies=args.secure_cookies, pool_size=args.pool_size)
 
 
 # ----------------------------------------------------------------------------- parser
@@ -376,6 +376,8 @@ def _add_serve_parser(sub) -> None:
                    help="check for such kernels every N s (default 30)")
     p.add_argument("--base-url", default="/", metavar="PATH", help="serve under PATH, e.g. behind a reverse proxy")
     p.add_argument("--secure-cookies", action="store_true", help="mark cookies Secure (TLS at a reverse proxy)")
+    p.add_argument("--pool-size", type=int, default=2, metavar="N",
+                   help="kernels kept started ahead of page requests, so a page opens faster (default 2; 0: none)")
     p.set_defaults(func=cmd_serve)
 
 

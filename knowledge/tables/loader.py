@@ -7,15 +7,17 @@ never in a live decision.
 
 from __future__ import annotations
 
+import functools
 import hashlib
+import sys
 from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-import yaml
 from pydantic import ValidationError
 
+from . import cache
 from . import models as m
 from .conditions import Compiled, compile_condition, compile_partial
 from . import overlay as ov_mod
@@ -23,8 +25,6 @@ from ..errors import KnowledgeError
 from .validation import describe, error_from
 
 DATA_DIR = Path(__file__).resolve().parent.parent / "data"
-#: libyaml's C loader when PyYAML was built with it (same safe subset, several times faster)
-_YAML_LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
 DEFAULT_POLICY = DATA_DIR / "policies" / "default.yaml"
 TABLES = ("sources", "agents", "routes", "exams", "rules")
 
@@ -51,7 +51,8 @@ class Knowledge:
     agents: dict[str, m.Agent] = field(default_factory=dict)
     exams: dict[str, m.Exam] = field(default_factory=dict)
     rules: dict[str, m.Rule] = field(default_factory=dict)
-    #: (exam id, role index) -> [(agent, static facts, agent rules that can fire for it)], built at load
+    #: (exam id, role index) -> [(agent, static facts, agent rules that can fire for it)]; a
+    #: :class:`Candidates`, which builds each entry on first use
     candidates: dict[tuple[str, int], list[tuple[m.Agent, dict[str, Any], list["CompiledRule"]]]] = field(
         default_factory=dict)
     compatible: dict[m.Route, list[m.Agent]] = field(default_factory=dict)
@@ -95,22 +96,30 @@ MAX_YAML_BYTES = 4_000_000
 MAX_YAML_NODES = 500_000
 
 
-class _UniqueKeyLoader(_YAML_LOADER):  # type: ignore[misc, valid-type]
-    """The safe loader, but a mapping with the same key twice is an error (the last no longer wins)."""
+@functools.lru_cache(maxsize=None)
+def _yaml_loader() -> type:
+    """PyYAML's safe loader (libyaml's C loader when PyYAML was built with it: the same safe subset, several
+    times faster), but a mapping with the same key twice is an error (the last no longer wins). Imported on
+    first use: a process that finds every file it reads in the parse cache (``cache.py``) never imports yaml."""
+    import yaml
 
-    def construct_mapping(self, node, deep=False):  # type: ignore[override]
-        seen: set = set()
-        for key_node, _ in node.value:
-            key = self.construct_object(key_node, deep=True)
-            try:
-                duplicate = key in seen
-                seen.add(key)
-            except TypeError:  # an unhashable key: the base class reports it
-                continue
-            if duplicate:
-                raise yaml.constructor.ConstructorError(
-                    None, None, f"duplicate key {str(key)[:60]!r} (each setting may appear once)", key_node.start_mark)
-        return super().construct_mapping(node, deep=deep)
+    class UniqueKeyLoader(getattr(yaml, "CSafeLoader", yaml.SafeLoader)):  # type: ignore[misc]
+        def construct_mapping(self, node, deep=False):  # type: ignore[override]
+            seen: set = set()
+            for key_node, _ in node.value:
+                key = self.construct_object(key_node, deep=True)
+                try:
+                    duplicate = key in seen
+                    seen.add(key)
+                except TypeError:  # an unhashable key: the base class reports it
+                    continue
+                if duplicate:
+                    raise yaml.constructor.ConstructorError(
+                        None, None, f"duplicate key {str(key)[:60]!r} (each setting may appear once)",
+                        key_node.start_mark)
+            return super().construct_mapping(node, deep=deep)
+
+    return UniqueKeyLoader
 
 
 def _count_nodes(data: Any, budget: int) -> int:
@@ -159,14 +168,28 @@ def _read_text(path: Path, cls: type[KnowledgeError] = KnowledgeError, limit: in
 
 
 def _read_yaml(path: Path) -> Any:
+    """(data, bytes) of a YAML file: from the parse cache when it holds these exact bytes, else parsed
+    (and then stored in the cache, for the bundled files)."""
     blob = _read_text(path)
+    data = cache.read(path, blob)
+    if data is not cache.MISSING:
+        return data, blob
+    data = _parse_yaml(path, blob)
+    if not sys.dont_write_bytecode:  # the cache is written when bytecode is (PYTHONDONTWRITEBYTECODE)
+        cache.write(path, blob, data)
+    return data, blob
+
+
+def _parse_yaml(path: Path, blob: bytes) -> Any:
+    import yaml
+
     try:
         text = blob.decode("utf-8")
     except UnicodeDecodeError as exc:
         raise KnowledgeError(f"{path.name}: not UTF-8 text (byte {exc.start + 1}); allowed: a UTF-8 YAML file",
                              field=path.name) from None
     try:
-        data = yaml.load(text, Loader=_UniqueKeyLoader)
+        data = yaml.load(text, Loader=_yaml_loader())
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         at = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
@@ -177,7 +200,19 @@ def _read_yaml(path: Path) -> Any:
     if _count_nodes(data, MAX_YAML_NODES) > MAX_YAML_NODES:
         raise KnowledgeError(f"{path.name}: expands to more than {MAX_YAML_NODES} values (anchors and aliases?); "
                              "allowed: plain YAML records", field=path.name)
-    return data, blob
+    return data
+
+
+def write_parse_cache() -> int:
+    """Parse every bundled table and policy and store it in the parse cache, whatever
+    PYTHONDONTWRITEBYTECODE says (as ``compileall`` writes bytecode); ``contrast-aid serve`` runs this once
+    at start. Returns the files stored (0 where the data folder is read-only)."""
+    stored = 0
+    for path in [DATA_DIR / f"{name}.yaml" for name in TABLES] + sorted((DATA_DIR / "policies").glob("*.yaml")):
+        blob = _read_text(path)
+        if cache.read(path, blob) is cache.MISSING:
+            stored += cache.write(path, blob, _parse_yaml(path, blob))
+    return stored
 
 
 def _validate_list(model: type, rows: Any, name: str) -> list:
@@ -358,19 +393,68 @@ def exam_agents(k: "Knowledge", exam: m.Exam, role: m.ExamRole) -> list[m.Agent]
     return [a for a in k.compatible[role.route] if modality in a.imaging_modalities()]
 
 
-def _build_candidates(k: Knowledge) -> None:
-    """Index, per exam role and agent, the rules whose exam/role/agent/policy tests do not already fail.
+Candidate = tuple[m.Agent, dict[str, Any], list[CompiledRule]]
 
-    A speed-up only: the full condition is still tested on every decision."""
-    partial = [(cr, compile_partial(cr.rule.when, k.policy)) for cr in k.agent_rules]
-    for exam in k.tables.exams:
-        for i, role in enumerate(exam.roles):
-            rows = []
-            for agent in exam_agents(k, exam, role):
-                facts = static_facts(exam, role, agent, k.policy)
-                rules = [cr for cr, test in partial if test(facts) is not False]
-                rows.append((agent, facts, rules))
-            k.candidates[(exam.id, i)] = rows
+
+class Candidates(dict):
+    """(exam id, role index) -> [(agent, static facts, agent rules that can fire for it)], built per exam
+    role the first time it is asked for (a page that decides one exam does not index the other 150).
+
+    An index only: every rule's full condition is still tested on every decision, and the rules were
+    checked and compiled at load. Iterating (``items()``, ``len()``...) builds every entry first."""
+
+    def __init__(self, k: Knowledge):
+        super().__init__()
+        self._k = k
+        self._partial = [(cr, compile_partial(cr.rule.when, k.policy)) for cr in k.agent_rules]
+
+    def __missing__(self, key: tuple[str, int]) -> list[Candidate]:
+        exam = self._k.exams.get(key[0]) if isinstance(key, tuple) and len(key) == 2 else None
+        if exam is None or not isinstance(key[1], int) or not 0 <= key[1] < len(exam.roles):
+            raise KeyError(key)
+        role = exam.roles[key[1]]
+        rows = []
+        for agent in exam_agents(self._k, exam, role):
+            facts = static_facts(exam, role, agent, self._k.policy)
+            rows.append((agent, facts, [cr for cr, test in self._partial if test(facts) is not False]))
+        self[key] = rows
+        return rows
+
+    def get(self, key, default=None):
+        try:
+            return self[key]
+        except KeyError:
+            return default
+
+    def __contains__(self, key) -> bool:
+        return self.get(key) is not None
+
+    def fill(self) -> "Candidates":
+        for exam in self._k.tables.exams:
+            for i in range(len(exam.roles)):
+                self[(exam.id, i)]
+        return self
+
+    def keys(self):
+        return dict.keys(self.fill())
+
+    def values(self):
+        return dict.values(self.fill())
+
+    def items(self):
+        return dict.items(self.fill())
+
+    def __iter__(self):
+        return dict.__iter__(self.fill())
+
+    def __len__(self) -> int:
+        return dict.__len__(self.fill())
+
+
+def _build_candidates(k: Knowledge) -> None:
+    """Index, per exam role and agent, the rules whose exam/role/agent/policy tests do not already fail
+    (lazily, see :class:`Candidates`). A speed-up only: the full condition is still tested on every decision."""
+    k.candidates = Candidates(k)
 
 
 class _Settings(dict):

@@ -1,8 +1,9 @@
 """The served app as a department runs it all day: sessions end, one page starts kernels, locked down.
 
 One server for the module, started as ``contrast-aid serve`` starts it (``serve.voila_command``) but with
-short cull times (a kernel with no browser connected is culled after CULL_IDLE_S idle, checked every
-second) and with its own HOME, TMPDIR and working directory under the test's temporary folder, so every
+no pool of started kernels (``tests/browser/test_pool.py`` tests the pool), short cull times (a kernel
+with no browser connected is culled after CULL_IDLE_S idle, checked every second) and its own HOME,
+TMPDIR and working directory under the test's temporary folder, so every
 file the server and its kernels write can be searched for case values afterwards. Kernels are counted
 and measured from /proc (tests/browser/procs.py): the app exposes no kernel list.
 """
@@ -68,7 +69,11 @@ def deployed(tmp_path_factory):
     # HOME moves; the user's site-packages (if any) stay where they are
     env.update(HOME=str(home), TMPDIR=str(tmp), PYTHONUSERBASE=site.getuserbase())
     port = free_port()
-    cmd = serve.voila_command(port, None, cull_idle_seconds=CULL_IDLE_S, cull_interval_seconds=CULL_INTERVAL_S)
+    # No pool of started kernels (tests/browser/test_pool.py runs one): every kernel counted here is a page's.
+    # The kernel of a page fetched without a browser (urllib, below) is culled after CULL_IDLE_S like any
+    # other, not after the grace a loading page gets (test_serve.py tests that grace).
+    cmd = serve.voila_command(port, None, cull_idle_seconds=CULL_IDLE_S, cull_interval_seconds=CULL_INTERVAL_S,
+                              pool_size=0) + [f"--ContrastAidKernelManager.connect_grace_seconds={CULL_IDLE_S}"]
     log = root / "server.log"
     with log.open("w", encoding="utf-8") as fh:
         proc = subprocess.Popen(cmd, env=env, stdout=fh, stderr=subprocess.STDOUT, cwd=cwd)
@@ -198,7 +203,7 @@ def test_health_check_is_200_tiny_and_starts_no_kernel(deployed):
     for _ in range(5):
         status, headers, body = fetch(deployed.url + server.HEALTH_PATH)
         assert status == 200 and len(body) < 64
-        assert json.loads(body) == {"status": "ok", "kernels": 0}
+        assert json.loads(body) == {"status": "ok", "kernels": 0, "pooled": 0}
         assert headers["Cache-Control"] == "no-store"
     assert fetch(deployed.url + server.HEALTH_PATH, method="HEAD")[0] == 200
     assert deployed.kernels() == {}

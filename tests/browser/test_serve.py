@@ -104,7 +104,7 @@ def test_voila_arguments_cull_lock_down_and_base_url():
                  "--MappingKernelManager.cull_connected=False",
                  "--VoilaConfiguration.allow_template_override=NO",
                  "--VoilaConfiguration.allow_theme_override=NO",
-                 "--VoilaConfiguration.multi_kernel_manager_class=widgets.server.KernelManager",
+                 "--VoilaConfiguration.multi_kernel_manager_class=widgets.server.ContrastAidKernelManager",
                  "--Voila.base_url=/", "--ContrastAidVoila.secure_cookies=False"):
         assert flag in args
     args = serve.voila_arguments(8123, cull_idle_seconds=60, cull_interval_seconds=5, base_url="dept/contrast")
@@ -135,12 +135,12 @@ def test_cli_passes_the_serve_options(monkeypatch):
     seen = {}
     monkeypatch.setattr(serve, "serve", lambda port, policy, **kw: seen.update(port=port, policy=policy, **kw) or 0)
     assert cli.main(["serve", "--port", "9001", "--cull-idle-seconds", "300", "--cull-interval-seconds", "10",
-                     "--base-url", "/dept/", "--secure-cookies"]) == 0
+                     "--base-url", "/dept/", "--secure-cookies", "--pool-size", "0"]) == 0
     assert seen == {"port": 9001, "policy": None, "cull_idle_seconds": 300, "cull_interval_seconds": 10,
-                    "base_url": "/dept/", "secure_cookies": True}
+                    "base_url": "/dept/", "secure_cookies": True, "pool_size": 0}
     assert cli.main(["serve"]) == 0
-    assert (seen["cull_idle_seconds"], seen["cull_interval_seconds"], seen["base_url"], seen["secure_cookies"]) == (
-        serve.CULL_IDLE_S, serve.CULL_INTERVAL_S, "/", False)
+    assert (seen["cull_idle_seconds"], seen["cull_interval_seconds"], seen["base_url"], seen["secure_cookies"],
+            seen["pool_size"]) == (serve.CULL_IDLE_S, serve.CULL_INTERVAL_S, "/", False, serve.POOL_SIZE)
 
 
 @pytest.mark.browser
@@ -199,3 +199,87 @@ def test_server_log_lines_lose_kernel_ids_and_query_strings():
     assert kid not in text and "7.77" not in text and "creatinine" not in text
     assert text.count("<kernel>") == 3 and "GET /?<query> (127.0.0.1)" in text
     assert "KeyError" in text  # the traceback itself is kept
+
+
+def test_voila_arguments_set_the_pool_and_nbclient_waits_for_the_output():
+    args = serve.voila_arguments(8123)
+    assert f"--ContrastAidKernelManager.pool_size={serve.POOL_SIZE}" in args and serve.POOL_SIZE == 2
+    assert "--ContrastAidKernelManager.pool_preload=import widgets.app" in args
+    # nbclient's default of 4 s lost the dashboard's output with 8 pages opening at once on 2 cores
+    assert "--VoilaExecutor.iopub_timeout=60" in args and "--VoilaExecutor.store_widget_state=False" in args
+    assert "--ContrastAidKernelManager.pool_size=0" in serve.voila_arguments(8123, pool_size=0)
+
+
+def test_bad_pool_size_exits_2_with_one_line(capsys):
+    assert serve.serve(free_port(), None, pool_size=-1) == 2
+    assert "pool-size: -1 is out of range; allowed 0-32" in capsys.readouterr().err
+
+
+def test_prepare_byte_compiles_and_stores_the_parse_cache(tmp_path):
+    from knowledge.tables import cache, loader
+
+    entry = cache.entry_path(loader.DEFAULT_POLICY, loader.DEFAULT_POLICY.read_bytes())
+    entry.unlink(missing_ok=True)
+    compiled = serve.Path(serve.__file__).parent / "__pycache__" / f"server.{sys.implementation.cache_tag}.pyc"
+    compiled.unlink(missing_ok=True)
+    serve.prepare()
+    assert entry.is_file() and compiled.is_file()
+
+
+def test_the_environment_code_sets_only_what_differs_as_literals(monkeypatch):
+    import enum
+    import os
+
+    from widgets import server
+
+    class Key(str, enum.Enum):  # as Voila's ENV_VARIABLE
+        QUERY_STRING = "QUERY_STRING"
+
+    query = "exam=ct-abdomen-pelvis&creatinine=7.77'); import shutil; ('"
+    env = {Key.QUERY_STRING: query, "SAME": "1", "SERVER_PORT": "8866"}
+    code = server.environment_code(env, {"SAME": "1"})
+    assert "SAME" not in code and code.count("'QUERY_STRING'") == 1
+    for key in ("QUERY_STRING", "SERVER_PORT"):
+        monkeypatch.delenv(key, raising=False)
+    exec(compile(code, "<pool>", "exec"), {})
+    assert os.environ["QUERY_STRING"] == query and os.environ["SERVER_PORT"] == "8866"  # (monkeypatch unsets them)
+
+
+def test_the_cull_check_spares_a_starting_a_pooled_and_a_not_yet_connected_kernel(monkeypatch):
+    """jupyter_server culls any kernel with no browser connected once idle; a page whose script has not
+    connected yet (a busy machine) lost its kernel that way, and a kernel still starting made the check
+    log a TraitError traceback."""
+    import asyncio
+    import concurrent.futures
+    import datetime as dt
+    import types
+
+    from jupyter_server._tz import utcnow
+    from jupyter_server.services.kernels.kernelmanager import AsyncMappingKernelManager
+
+    from widgets import server
+
+    culled: list[str] = []
+
+    async def parent_cull(self, kernel_id):
+        culled.append(kernel_id)
+
+    monkeypatch.setattr(AsyncMappingKernelManager, "cull_kernel_if_idle", parent_cull)
+    km = server.ContrastAidKernelManager(cull_idle_timeout=10)
+
+    def kernel(idle_s):
+        last = None if idle_s is None else utcnow() - dt.timedelta(seconds=idle_s)
+        return types.SimpleNamespace(_trait_values={"last_activity": last})
+
+    assert km.connect_grace_seconds == server.CONNECT_GRACE_S == serve.CULL_IDLE_S
+    km._kernels.update(starting=kernel(None), loading=kernel(30), lost=kernel(server.CONNECT_GRACE_S + 5),
+                       used=kernel(30), pooled=kernel(10_000))
+    km._kernel_connections.update(dict.fromkeys(km._kernels, 0))
+    km.notify_connect("used")
+    km.notify_disconnect("used")  # its page has gone
+    km._pooled.add("pooled")
+    with concurrent.futures.ThreadPoolExecutor(1) as pool:  # its own event loop (Playwright may run one here)
+        for kid in list(km._kernels) + ["already-shut-down"]:
+            pool.submit(asyncio.run, km.cull_kernel_if_idle(kid)).result()
+    assert culled == ["lost", "used"]
+    assert km.session_count() == 4  # the pooled kernel is not a session
