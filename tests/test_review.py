@@ -265,6 +265,27 @@ def test_workers_2_writes_the_same_file(tmp_path, capsys, monkeypatch):
     assert outs[0] == outs[1]
 
 
+def test_workers_default_is_the_cores_and_bad_counts_are_refused(tmp_path, capsys, monkeypatch):
+    from knowledge.review import scale
+
+    asked = []
+    monkeypatch.setattr(scale, "pool_reviewer", lambda workers=None: asked.append(workers) or None)
+    src = write_csv(tmp_path / "l.csv", ["order_id", "exam"], [["A", "ct-chest"]])
+    code, _, _ = run(["review", str(src), "--as-of", AS_OF], capsys)
+    assert code == 0 and asked == [0]  # no --workers: 0, pool_reviewer's "the cores, at most 2"
+    code, _, _ = run(["review", str(src), "--as-of", AS_OF, "--workers", "1"], capsys)
+    assert code == 0 and asked == [0]  # 1: this process only, no pool asked for
+    for bad in ("-2", "two"):
+        with pytest.raises(SystemExit) as stop:
+            main(["review", str(src), "--as-of", AS_OF, "--workers", bad], clock=clock)
+        err = capsys.readouterr().err
+        assert stop.value.code == 2 and f"--workers: '{bad}'; allowed: 0 (the cores, at most 2)" in err
+    with pytest.raises(SystemExit):
+        main(["review", "--help"], clock=clock)
+    words = " ".join(capsys.readouterr().out.split())
+    assert f"Lists under {scale.POOL_MIN_ROWS:,} distinct rows stay in this process" in words
+
+
 def test_identical_cases_are_decided_once():
     k = load_knowledge()
     header = ["order_id", "exam", "egfr"]

@@ -205,8 +205,19 @@ def _progress_bar(total: int, enabled: bool):
     return bar, bar.update
 
 
+def _workers(text: str) -> int:
+    """``--workers``: a whole number, 0 or more."""
+    try:
+        n = int(text)
+    except ValueError:
+        n = -1
+    if n < 0:
+        raise argparse.ArgumentTypeError(f"{text!r}; allowed: 0 (the cores, at most 2) or a number of processes")
+    return n
+
+
 def _pool(workers: int) -> Any:
-    """The process pool ``--workers`` asks for (None: review in this process)."""
+    """The process pool ``--workers`` asks for (None: review in this process; 0: the cores, at most 2)."""
     if workers == 1:
         return None
     from ..review.scale import pool_reviewer
@@ -267,8 +278,9 @@ def add_department_parsers(sub: Any, parser_class: type) -> None:
     p.add_argument("--before", metavar="T", help="list the orders needing action before T (default: as-of + 24 h)")
     p.add_argument("--engine", choices=("local", "dask"), default="local")
     p.add_argument("--scheduler", metavar="ADDRESS", help="Dask scheduler address, with --engine dask")
-    p.add_argument("--workers", type=int, default=1, metavar="N",
-                   help="processes to split the distinct rows of a long list over (default 1: this process "
-                        "only; 2 pays when a second core is free: see benchmarks/bench_review.py)")
+    p.add_argument("--workers", type=_workers, default=0, metavar="N",
+                   help="processes to split the distinct rows of a long list over (default 0: the machine's "
+                        "cores, at most 2; 1: this process only). Lists under 4,000 distinct rows stay in this "
+                        "process; see benchmarks/bench_review.py")
     p.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=cmd_review)

@@ -499,21 +499,27 @@ def plan_metformin(case: m.Case, met: m.MetforminBlock) -> m.MetforminBlock:
 def _dose_limits(doses: list[tuple[m.ExamRole, m.DoseBlock]], p: m.Patient, pol: m.Policy,
                  agfr: float | None, catheter_study: bool = False) -> m.DoseLimits:
     """The renal dose limits of the planned doses: g iodine / GFR, the first-pass caps, Cigarroa."""
+    return m.DoseLimits(**dose_limit_fields(doses, p, pol, agfr, catheter_study))
+
+
+def dose_limit_fields(doses: list[tuple[m.ExamRole, m.DoseBlock]], p: m.Patient, pol: m.Policy,
+                      agfr: float | None, catheter_study: bool = False) -> dict[str, Any]:
+    """The fields of :func:`_dose_limits`'s block, unvalidated (the worklist review reads a few of them)."""
     grams = [d.iodine_g for _, d in doses if d.iodine_g is not None]
     iodine = sum(grams) if grams else None
     if p.dialysis is m.Dialysis.dialysis_anuric:
         # no kidney function to protect (ACR-NKF 2020): no g iodine / GFR, Cigarroa or "reduce the dose" advice
-        return m.DoseLimits(iodine_g=_r(iodine), iodine_g_per_gfr_max=pol.iodine_g_per_gfr_max,
-                            first_pass_iodine_g_per_gfr_max=pol.first_pass_iodine_g_per_gfr_max,
-                            messages=["Anuric on dialysis: no kidney function to protect - the kidney dose limits "
-                                      "(g iodine / GFR, Cigarroa) do not apply"])
+        return dict(iodine_g=_r(iodine), iodine_g_per_gfr_max=pol.iodine_g_per_gfr_max,
+                    first_pass_iodine_g_per_gfr_max=pol.first_pass_iodine_g_per_gfr_max,
+                    messages=["Anuric on dialysis: no kidney function to protect - the kidney dose limits "
+                              "(g iodine / GFR, Cigarroa) do not apply"])
     msgs: list[str] = []
     iodine_max = _r(pol.iodine_g_per_gfr_max * max(agfr, limits.GFR_ML_MIN_RANGE[0])) if agfr is not None else None
     ratio, exceeded = _gfr_ratio_limit(iodine, agfr, pol, msgs)
     vol_ratio, first_pass_exceeded = _first_pass_limits(doses, agfr, pol, msgs)
     exceeded = True if first_pass_exceeded else exceeded
     cig, cat_vol, cig_exceeded = _cigarroa_limit(doses, p, pol, iodine_max, catheter_study, msgs)
-    return m.DoseLimits(
+    return dict(
         iodine_g=_r(iodine), iodine_g_per_gfr=_r(ratio, 2), iodine_g_per_gfr_max=pol.iodine_g_per_gfr_max,
         iodine_g_per_gfr_exceeded=exceeded, first_pass_iodine_g_per_gfr_max=pol.first_pass_iodine_g_per_gfr_max,
         volume_ml_per_gfr=vol_ratio, cigarroa_max_ml=cig, catheter_volume_ml=_r(cat_vol), iodine_g_max=iodine_max,

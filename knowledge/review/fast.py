@@ -136,10 +136,11 @@ class Record:
 
 
 # ----------------------------------------------------------------------------- templates and classes
-def _with(obj: Any, changes: dict) -> Any:
-    """A copy of a (frozen) model with some fields replaced: what the model would hold for those values."""
+def _with(obj: Any, fields: dict) -> Any:
+    """A copy of a (frozen) model holding ``fields`` (its own, some replaced): what the model would hold for
+    those values."""
     new = object.__new__(type(obj))
-    _setattr(new, "__dict__", {**obj.__dict__, **changes})
+    _setattr(new, "__dict__", fields)
     _setattr(new, "__pydantic_extra__", None)
     _setattr(new, "__pydantic_fields_set__", obj.__pydantic_fields_set__)  # never changed on a frozen model
     _setattr(new, "__pydantic_private__", None)
@@ -392,17 +393,18 @@ class FastReview:
         """The order's case: the template's, with the order's numeric cells (None: a cell the model refuses)."""
         built: list[Any] = []
         for obj, fields, children in tpl.owners:
-            changes = {}
+            held = obj.__dict__.copy()
             for field, name, cells in fields:
-                value = cells.get(row[name], _MISSING)
+                text = row[name]
+                value = cells.get(text, _MISSING)
                 if value is _MISSING:
-                    value = self._cell(obj, field, cells, row[name])
+                    value = self._cell(obj, field, cells, text)
                 if value is _BAD:
                     return None
-                changes[field] = value
+                held[field] = value
             for field, i in children:
-                changes[field] = built[i]
-            built.append(_with(obj, changes))
+                held[field] = built[i]
+            built.append(_with(obj, held))
         return built[-1] if built else tpl.case
 
     def _tests(self, tpl: _Template, p: m.Patient, egfr: float | None, category: str | None) -> tuple:
@@ -501,9 +503,9 @@ class FastReview:
         key = (doses.content, p.dialysis, agfr, catheter, cigarroa)
         found = self.memo["limits"].get(key)
         if found is None:
-            limits = plans._dose_limits(doses.doses, p, self.k.policy, agfr, catheter)
-            found = self.memo["limits"][key] = _Limits(limits.iodine_g_per_gfr_exceeded, limits.cigarroa_exceeded,
-                                                       tuple(limits.messages))
+            limits = plans.dose_limit_fields(doses.doses, p, self.k.policy, agfr, catheter)
+            found = self.memo["limits"][key] = _Limits(limits.get("iodine_g_per_gfr_exceeded"),
+                                                       limits.get("cigarroa_exceeded"), tuple(limits["messages"]))
         return found
 
     def _times(self, case: m.Case) -> list:
