@@ -12,11 +12,14 @@ Screenshots go to ``test-artifacts/screenshots/`` (gitignored).
 
 from __future__ import annotations
 
+import contextlib
 import os
 import shutil
+import site
 import socket
 import subprocess
 from pathlib import Path
+from typing import Callable, Iterator
 
 import pytest
 
@@ -43,6 +46,32 @@ def free_port() -> int:
     with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
         s.bind(("127.0.0.1", 0))
         return s.getsockname()[1]
+
+
+@contextlib.contextmanager
+def isolated_server(root: Path, command: Callable[[int], list[str]]
+                    ) -> Iterator[tuple[subprocess.Popen, int, Path]]:
+    """A server of its own: ``command(port)`` run on a free port with its own HOME, TMPDIR and working directory
+    under ``root`` (the user's site-packages, if any, stay where they are), its output in ``root/server.log``.
+    Yields (process, port, log) once it answers; stopped on exit. Fails with the log's tail if it never
+    answers."""
+    home, tmp, cwd = root / "home", root / "tmp", root / "cwd"
+    for d in (home, tmp, cwd):
+        d.mkdir()
+    env = serve.voila_environment(None)
+    env.update(HOME=str(home), TMPDIR=str(tmp), PYTHONUSERBASE=site.getuserbase())
+    port = free_port()
+    cmd = command(port)
+    log = root / "server.log"
+    with log.open("w", encoding="utf-8") as fh:
+        proc = subprocess.Popen(cmd, env=env, stdout=fh, stderr=subprocess.STDOUT, cwd=cwd)
+    if not serve.wait_until_ready(port, proc, timeout=120):
+        serve.stop(proc)
+        pytest.fail(f"server did not start:\n{log.read_text()[-3000:]}", pytrace=False)
+    try:
+        yield proc, port, log
+    finally:
+        serve.stop(proc)
 
 
 def start_voila(cmd: list[str], port: int, env: dict[str, str], log_name: str) -> tuple[subprocess.Popen, Path]:

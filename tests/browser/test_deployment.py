@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import json
 import re
-import site
 import subprocess
 import time
 import urllib.error
@@ -24,7 +23,7 @@ import pytest
 from widgets import serve, server
 
 from . import procs
-from .conftest import LOAD_TIMEOUT_MS, free_port, screenshot
+from .conftest import LOAD_TIMEOUT_MS, isolated_server, screenshot
 
 pytestmark = pytest.mark.browser
 
@@ -62,30 +61,22 @@ class Deployed:
 @pytest.fixture(scope="module")
 def deployed(tmp_path_factory):
     root = tmp_path_factory.mktemp("deployed")
-    home, tmp, cwd = root / "home", root / "tmp", root / "cwd"
-    for d in (home, tmp, cwd):
-        d.mkdir()
-    env = serve.voila_environment(None)
-    # HOME moves; the user's site-packages (if any) stay where they are
-    env.update(HOME=str(home), TMPDIR=str(tmp), PYTHONUSERBASE=site.getuserbase())
-    port = free_port()
+
     # No pool of started kernels (tests/browser/test_pool.py runs one): every kernel counted here is a page's.
     # The kernel of a page fetched without a browser (urllib, below) is culled after CULL_IDLE_S like any
     # other, not after the grace a loading page gets (test_serve.py tests that grace).
-    cmd = serve.voila_command(port, None, cull_idle_seconds=CULL_IDLE_S, cull_interval_seconds=CULL_INTERVAL_S,
-                              pool_size=0) + [f"--ContrastAidKernelManager.connect_grace_seconds={CULL_IDLE_S}"]
-    log = root / "server.log"
-    with log.open("w", encoding="utf-8") as fh:
-        proc = subprocess.Popen(cmd, env=env, stdout=fh, stderr=subprocess.STDOUT, cwd=cwd)
-    if not serve.wait_until_ready(port, proc, timeout=120):
-        serve.stop(proc)
-        pytest.fail(f"server did not start:\n{log.read_text()[-3000:]}", pytrace=False)
-    d = Deployed(proc, port, root, log)
+    def command(port: int) -> list[str]:
+        return serve.voila_command(port, None, cull_idle_seconds=CULL_IDLE_S, cull_interval_seconds=CULL_INTERVAL_S,
+                                   pool_size=0) + [f"--ContrastAidKernelManager.connect_grace_seconds={CULL_IDLE_S}"]
+
+    d = None
     try:
-        yield d
+        with isolated_server(root, command) as (proc, port, log):
+            d = Deployed(proc, port, root, log)
+            yield d
     finally:
-        serve.stop(proc)
-        d.log.with_name("server-log-copy.txt").write_text(d.log_text(), encoding="utf-8")
+        if d is not None:  # the server has stopped: its whole log
+            d.log.with_name("server-log-copy.txt").write_text(d.log_text(), encoding="utf-8")
 
 
 def fetch(url: str, method: str = "GET", data: bytes | None = None):

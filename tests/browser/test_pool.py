@@ -11,8 +11,6 @@ reaches the log or the disk.
 from __future__ import annotations
 
 import json
-import site
-import subprocess
 import time
 import urllib.request
 
@@ -21,7 +19,7 @@ import pytest
 from widgets import serve, server
 
 from . import procs
-from .conftest import LOAD_TIMEOUT_MS, free_port
+from .conftest import LOAD_TIMEOUT_MS, isolated_server
 
 pytestmark = pytest.mark.browser
 
@@ -38,24 +36,14 @@ VALUES = ("7.7731", "2.3457", "5.5519")
 @pytest.fixture(scope="module")
 def pooled(tmp_path_factory):
     root = tmp_path_factory.mktemp("pooled")
-    home, tmp, cwd = root / "home", root / "tmp", root / "cwd"
-    for d in (home, tmp, cwd):
-        d.mkdir()
-    env = serve.voila_environment(None)
-    env.update(HOME=str(home), TMPDIR=str(tmp), PYTHONUSERBASE=site.getuserbase())
-    port = free_port()
-    cmd = serve.voila_command(port, None, cull_idle_seconds=CULL_IDLE_S, cull_interval_seconds=1)
-    assert f"--ContrastAidKernelManager.pool_size={POOL}" in cmd and POOL >= 2
-    log = root / "server.log"
-    with log.open("w", encoding="utf-8") as fh:
-        proc = subprocess.Popen(cmd, env=env, stdout=fh, stderr=subprocess.STDOUT, cwd=cwd)
-    if not serve.wait_until_ready(port, proc, timeout=120):
-        serve.stop(proc)
-        pytest.fail(f"server did not start:\n{log.read_text()[-3000:]}", pytrace=False)
-    try:
+
+    def command(port: int) -> list[str]:
+        cmd = serve.voila_command(port, None, cull_idle_seconds=CULL_IDLE_S, cull_interval_seconds=1)
+        assert f"--ContrastAidKernelManager.pool_size={POOL}" in cmd and POOL >= 2
+        return cmd
+
+    with isolated_server(root, command) as (proc, port, log):
         yield proc, serve.url_for(port), root, log
-    finally:
-        serve.stop(proc)
 
 
 def health(url: str) -> dict:
