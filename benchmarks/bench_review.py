@@ -14,8 +14,8 @@ Two kinds of list (benchmarks/worklist_gen.py, invented orders):
 
 The machine is shared, so every figure is printed with the load average (1 min) when it was taken, and
 beside each wall-clock rate the orders per CPU-second (this process and its workers): the rate an otherwise
-idle core would give. ``workers=2`` splits the distinct rows over two processes: it pays only when a second
-core is free.
+idle core would give. ``workers=2`` splits the distinct rows over two processes (what ``contrast-aid review``
+does by default on a 2-core machine): it pays only when a second core is free.
 
 Run: python benchmarks/bench_review.py [--quick] [--repeat N]
 """
