@@ -61,25 +61,21 @@ def isolated_server(root: Path, command: Callable[[int], list[str]]
     env = serve.voila_environment(None)
     env.update(HOME=str(home), TMPDIR=str(tmp), PYTHONUSERBASE=site.getuserbase())
     port = free_port()
-    cmd = command(port)
-    log = root / "server.log"
-    with log.open("w", encoding="utf-8") as fh:
-        proc = subprocess.Popen(cmd, env=env, stdout=fh, stderr=subprocess.STDOUT, cwd=cwd)
-    if not serve.wait_until_ready(port, proc, timeout=120):
-        serve.stop(proc)
-        pytest.fail(f"server did not start:\n{log.read_text()[-3000:]}", pytrace=False)
+    proc, log = start_voila(command(port), port, env, root / "server.log", cwd=cwd)
     try:
         yield proc, port, log
     finally:
         serve.stop(proc)
 
 
-def start_voila(cmd: list[str], port: int, env: dict[str, str], log_name: str) -> tuple[subprocess.Popen, Path]:
-    """Start a Voila command, wait until it answers; fail with the tail of its log if it does not."""
+def start_voila(cmd: list[str], port: int, env: dict[str, str], log_name: str | Path,
+                cwd: Path = ROOT) -> tuple[subprocess.Popen, Path]:
+    """Start a Voila command in ``cwd``, its output in ``log_name`` (a name in test-artifacts/, or a path); wait
+    until it answers; fail with the tail of its log if it does not."""
     ARTIFACTS.mkdir(parents=True, exist_ok=True)
-    log_path = ARTIFACTS / log_name
+    log_path = ARTIFACTS / log_name  # an absolute path stays itself
     log = log_path.open("w", encoding="utf-8")
-    proc = subprocess.Popen(cmd, env=env, stdout=log, stderr=subprocess.STDOUT, cwd=ROOT)
+    proc = subprocess.Popen(cmd, env=env, stdout=log, stderr=subprocess.STDOUT, cwd=cwd)
     log.close()
     if not serve.wait_until_ready(port, proc, timeout=120):
         serve.stop(proc)
